@@ -1,0 +1,5 @@
+import sys
+
+from wellspan.cli import main
+
+sys.exit(main())
