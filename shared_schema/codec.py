@@ -36,7 +36,6 @@ import struct
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
-from functools import lru_cache
 from typing import Any, TypeVar
 from uuid import UUID
 
@@ -179,9 +178,20 @@ def _read_header(r: _Reader) -> int:
     return head[3]
 
 
-@lru_cache(maxsize=256)
+_CODES: dict[int, tuple[IndicatorLayout, tuple[str, ...]]] = {}
+
+
 def _value_codes(layout: IndicatorLayout) -> tuple[str, ...]:
-    return tuple("e" if s.encoding == "f16" else "f" for s in layout.indicators)
+    # Cached by identity, not with lru_cache: hashing a frozen layout hashes every spec, which
+    # cost more than decoding the frame. The entry keeps the layout alive, so its id stays unique.
+    hit = _CODES.get(id(layout))
+    if hit is not None and hit[0] is layout:
+        return hit[1]
+    codes = tuple("e" if s.encoding == "f16" else "f" for s in layout.indicators)
+    if len(_CODES) >= 256:
+        _CODES.clear()
+    _CODES[id(layout)] = (layout, codes)
+    return codes
 
 
 def _resolve(layouts: LayoutLookup, digest: str) -> IndicatorLayout:
@@ -279,7 +289,10 @@ def _read_identity(r: _Reader) -> tuple[UUID, int, datetime, float, int, str]:
     window_us = r.uvarint("window length", limit=2**40)
     flags = r.byte("flags")
     digest = r.take(8, "layout digest").hex()
-    start = _EPOCH + timedelta(milliseconds=ms)
+    try:
+        start = _EPOCH + timedelta(milliseconds=ms)
+    except OverflowError:  # 48 bits of milliseconds reach past the year 9999 of datetime
+        raise DecodeError(DecodeReason.INVALID, f"window start {ms} ms is out of range") from None
     return message_id, sequence, start, window_us / 1e6, flags, digest
 
 

@@ -35,18 +35,36 @@ def _cell(v: Any) -> str:
     return str(v)
 
 
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
 def print_table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> None:
-    """A plain aligned text table; numbers right-aligned."""
+    """A plain aligned text table; columns holding only numbers are right-aligned."""
     cells = [[_cell(v) for v in row] for row in rows]
     widths = [len(h) for h in headers]
     for row in cells:
         widths = [max(w, len(c)) for w, c in zip(widths, row, strict=False)]
+    numeric = [
+        all(_is_number(row[i]) or row[i] == "-" for row in cells if i < len(row)) and bool(cells)
+        for i in range(len(headers))
+    ]
     out = sys.stdout
-    out.write("  ".join(h.ljust(w) for h, w in zip(headers, widths, strict=True)).rstrip() + "\n")
+    out.write(
+        "  ".join(
+            h.rjust(w) if num else h.ljust(w)
+            for h, w, num in zip(headers, widths, numeric, strict=True)
+        ).rstrip()
+        + "\n"
+    )
     out.write("  ".join("-" * w for w in widths) + "\n")
     for row in cells:
-        parts = []
-        for c, w in zip(row, widths, strict=False):
-            numeric = c.replace(".", "", 1).replace("-", "", 1).replace("e", "", 1).isdigit()
-            parts.append(c.rjust(w) if numeric else c.ljust(w))
+        parts = [
+            c.rjust(w) if num else c.ljust(w)
+            for c, w, num in zip(row, widths, numeric, strict=False)
+        ]
         out.write("  ".join(parts).rstrip() + "\n")
