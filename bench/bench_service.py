@@ -1,0 +1,679 @@
+"""Benchmark of the prognosis service: ingest rates and history query latency (not a test).
+
+    .venv/bin/python -m bench.bench_service                 # everything, fleet-scale history
+    .venv/bin/python -m bench.bench_service --assets 100    # a smaller history fill
+    .venv/bin/python -m bench.bench_service --layout-compare
+
+Measured, in one run, on a private Mosquitto and a private PostgreSQL database:
+
+* broker-only rate: N QoS 1 messages queued for an offline persistent session, then drained by
+  a subscriber that only counts (acknowledging each), messages per second;
+* MQTT → store: the same N queued, drained by the service's ingest into SQLite and PostgreSQL
+  (commit before acknowledgement), messages per second and its share of the broker-only rate;
+* HTTP batch ingest: ``POST /v1/indicators`` with 1,000 readable messages per request against
+  ``wellspan serve --no-ingest`` (uvicorn), two client threads;
+* history query latency: ``GET /v1/assets/{id}/indicators/{name}`` over 60 days with the store
+  filled with ``--assets`` × ``--days`` × 24 hourly messages (bulk-loaded), p50 and p99.
+
+Targets: MQTT → store ≥ 6,000 msg/s and ≥ 65 % of broker-only; HTTP ≥ 20,000 msg/s;
+history p99 ≤ 50 ms.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import socket
+import sqlite3
+import statistics
+import struct
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+import paho.mqtt.client as mqtt
+import psycopg
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.properties import Properties
+
+from prognosis_service.auth import create_key
+from prognosis_service.domain.assets import AssetSpec, register_asset
+from prognosis_service.ingest.consumer import IngestService
+from prognosis_service.ingest.pipeline import Inbound, Pipeline
+from prognosis_service.metrics import Metrics
+from prognosis_service.settings import load_settings
+from prognosis_service.store.engine import Store
+from prognosis_service.store.migrate import upgrade
+from shared_schema import (
+    IndicatorLayout,
+    IndicatorMessage,
+    IndicatorSpec,
+    LayoutAnnouncement,
+    OperatingCondition,
+    ShaftSpeedSource,
+    encode_indicators,
+    encode_json,
+    indicators_topic,
+    layout_topic,
+    to_readable,
+)
+
+ROOT = Path(__file__).resolve().parents[1]
+PG_ADMIN = "postgresql://root@127.0.0.1:5432/test"
+SITE, GATEWAY = "mallee", "mallee-gw1"
+_CHANNELS = ("de_accel", "nde_accel", "discharge_pressure", "suction_pressure")
+_QUANTITIES = ("velocity_rms", "accel_rms", "kurtosis", "crest_factor", "env_bpfo", "env_bpfi")
+LAYOUT = IndicatorLayout(
+    extractor_version="bench-1",
+    indicators=tuple(
+        IndicatorSpec(name=f"{c}.{q}", unit="1", channel=c) for c in _CHANNELS for q in _QUANTITIES
+    ),
+)  # 24 indicators, as a gateway of the demo fleet sends
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _message(seq: int, asset: str, start: datetime) -> IndicatorMessage:
+    return IndicatorMessage(
+        message_id=uuid.uuid4(),
+        gateway_id=GATEWAY,
+        sequence=seq,
+        site=SITE,
+        asset_id=asset,
+        window_start=start,
+        window_s=10.0,
+        operating=OperatingCondition(
+            shaft_speed_hz=29.6, shaft_speed_source=ShaftSpeedSource.TACHO
+        ),
+        layout_digest=LAYOUT.digest,
+        values=tuple(float(seq % 97) + i for i in range(len(LAYOUT.indicators))),
+    )
+
+
+# -- infrastructure ---------------------------------------------------------------------------
+
+
+@contextmanager
+def mosquitto() -> Iterator[int]:
+    port = _free_port()
+    with tempfile.TemporaryDirectory() as tmp:
+        conf = Path(tmp) / "m.conf"
+        conf.write_text(
+            f"listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\n"
+            "max_queued_messages 0\nmax_inflight_messages 0\nlog_type none\n"
+        )
+        proc = subprocess.Popen(["/usr/sbin/mosquitto", "-c", str(conf)])
+        try:
+            for _ in range(200):
+                try:
+                    socket.create_connection(("127.0.0.1", port), 0.2).close()
+                    break
+                except OSError:
+                    time.sleep(0.05)
+            yield port
+        finally:
+            proc.terminate()
+            proc.wait()
+
+
+@contextmanager
+def pg_database() -> Iterator[str]:
+    name = f"wellspan_bench_{uuid.uuid4().hex[:10]}"
+    with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
+        admin.execute(f'CREATE DATABASE "{name}"')
+    try:
+        yield f"postgresql+psycopg://root@127.0.0.1:5432/{name}"
+    finally:
+        with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
+            admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+
+
+def prepare_store(url: str, assets: list[str]) -> None:
+    upgrade(url)
+    store = Store(url)
+    pipe = Pipeline()
+    with store.write() as s:
+        for a in assets:
+            register_asset(s, pipe, AssetSpec(asset_id=a, site=SITE, gateway_id=GATEWAY))
+        ann = LayoutAnnouncement(
+            gateway_id=GATEWAY, site=SITE, published_at=datetime.now(UTC), layouts=(LAYOUT,)
+        )
+        pipe.handle(s, [Inbound(layout_topic(SITE, GATEWAY), encode_json(ann), datetime.now(UTC))])
+    store.dispose()
+
+
+def _connect_props(receive_maximum: int) -> Properties:
+    props = Properties(PacketTypes.CONNECT)
+    props.SessionExpiryInterval = 3600
+    props.ReceiveMaximum = receive_maximum
+    return props
+
+
+def make_session(port: int, client_id: str) -> None:
+    """Create a persistent session with the ingest subscription, then leave it offline."""
+    done = threading.Event()
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
+    c.on_subscribe = lambda *a: done.set()
+    c.connect("127.0.0.1", port, clean_start=True, properties=_connect_props(1000))
+    c.loop_start()
+    c.subscribe("wellspan/+/+/+/+/indicators", qos=1)
+    done.wait(10)
+    c.disconnect()
+    c.loop_stop()
+
+
+def publish_queued(port: int, payloads: list[tuple[str, bytes]]) -> None:
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id="bench-pub", protocol=mqtt.MQTTv5)
+    c.max_inflight_messages_set(1000)
+    c.max_queued_messages_set(0)
+    c.connect("127.0.0.1", port)
+    c.loop_start()
+    infos = [c.publish(t, p, qos=1) for t, p in payloads]
+    for info in infos:
+        info.wait_for_publish(60)
+    c.disconnect()
+    c.loop_stop()
+
+
+# -- 1. broker only ---------------------------------------------------------------------------
+
+
+def broker_only_rate(port: int, payloads: list[tuple[str, bytes]]) -> float:
+    client_id = f"bench-count-{uuid.uuid4().hex[:6]}"
+    make_session(port, client_id)
+    publish_queued(port, payloads)
+    n = len(payloads)
+    count = 0
+    first = last = 0.0
+    done = threading.Event()
+
+    def on_message(_c: Any, _u: Any, _m: Any) -> None:
+        nonlocal count, first, last
+        count += 1
+        if count == 1:
+            first = time.perf_counter()
+        if count == n:
+            last = time.perf_counter()
+            done.set()
+
+    c = mqtt.Client(mqtt.CallbackAPIVersion.VERSION2, client_id=client_id, protocol=mqtt.MQTTv5)
+    c.on_message = on_message
+    t0 = time.perf_counter()
+    receive_maximum = load_settings().mqtt_receive_maximum  # the same window as the ingest's
+    c.connect("127.0.0.1", port, clean_start=False, properties=_connect_props(receive_maximum))
+    c.loop_start()
+    done.wait(300)
+    c.disconnect()
+    c.loop_stop()
+    del first
+    return n / (last - t0)
+
+
+# -- 2. MQTT → store --------------------------------------------------------------------------
+
+
+def ingest_rate(port: int, url: str, payloads: list[tuple[str, bytes]], assets: list[str]) -> float:
+    prepare_store(url, assets)
+    client_id = f"bench-ingest-{uuid.uuid4().hex[:6]}"
+    make_session(port, client_id)
+    publish_queued(port, payloads)
+    settings = load_settings(
+        database_url=url, mqtt_url=f"mqtt://127.0.0.1:{port}", mqtt_client_id=client_id
+    )
+    store = Store(url)
+    metrics = Metrics()
+    svc = IngestService(settings, store, Pipeline(), metrics=metrics)
+    n = len(payloads)
+    t0 = time.perf_counter()
+    svc.start()
+
+    def stored() -> float:
+        return metrics.value(
+            "wellspan_ingest_messages_total", source="mqtt", kind="indicators", result="stored"
+        )
+
+    while stored() < n and time.perf_counter() - t0 < 300:
+        time.sleep(0.005)
+    elapsed = time.perf_counter() - t0
+    svc.stop()
+    store.dispose()
+    if stored() != n:
+        raise RuntimeError(f"ingest stored {stored():.0f} of {n}")
+    return n / elapsed
+
+
+def _count_messages(url: str) -> int:
+    if url.startswith("sqlite"):
+        lite = sqlite3.connect(url.removeprefix("sqlite:///"), timeout=30)
+        try:
+            return int(lite.execute("SELECT count(*) FROM messages").fetchone()[0])
+        finally:
+            lite.close()
+    with psycopg.connect(url.replace("postgresql+psycopg://", "postgresql://")) as pg:
+        row = pg.execute("SELECT count(*) FROM messages").fetchone()
+        return int(row[0]) if row else 0
+
+
+def ingest_rate_replicas(
+    port: int, url: str, payloads: list[tuple[str, bytes]], assets: list[str], replicas: int
+) -> float:
+    """The scale-out: ``replicas`` × ``wellspan ingest`` in one shared-subscription group.
+
+    Each replica first connects once (creating its persistent session in the group) and is
+    stopped; the messages are then queued, the replicas started again, and the rate is taken
+    from the first stored message to the last.
+    """
+    prepare_store(url, assets)
+    group = f"bench{uuid.uuid4().hex[:6]}"
+    env = dict(
+        os.environ,
+        WELLSPAN_DATABASE_URL=url,
+        WELLSPAN_MQTT_URL=f"mqtt://127.0.0.1:{port}",
+        WELLSPAN_MQTT_SHARE_GROUP=group,
+    )
+    env.pop("WELLSPAN_CONFIG", None)
+    ids = [f"{group}-{i}" for i in range(replicas)]
+
+    def start(client_id: str, log: Path) -> subprocess.Popen[bytes]:
+        return subprocess.Popen(
+            [sys.executable, "-m", "wellspan", "ingest", "--client-id", client_id],
+            cwd=ROOT,
+            env=env,
+            stdout=subprocess.DEVNULL,
+            stderr=log.open("ab"),
+        )
+
+    with tempfile.TemporaryDirectory() as tmp:
+        logs = [Path(tmp) / f"{i}.log" for i in ids]
+        procs = [start(i, log) for i, log in zip(ids, logs, strict=True)]
+        deadline = time.monotonic() + 60
+        while not all(b"ingest connected" in log.read_bytes() for log in logs):
+            if time.monotonic() > deadline:
+                raise RuntimeError("ingest replicas did not connect")
+            time.sleep(0.05)
+        time.sleep(0.3)  # let the SUBACKs land
+        for p in procs:
+            p.terminate()
+            p.wait(30)
+        publish_queued(port, payloads)
+        procs = [start(i, log) for i, log in zip(ids, logs, strict=True)]
+        n = len(payloads)
+        first = last = 0.0
+        try:
+            deadline = time.monotonic() + 300
+            while time.monotonic() < deadline:
+                count = _count_messages(url)
+                now = time.perf_counter()
+                if count and not first:
+                    first = now
+                if count >= n:
+                    last = now
+                    break
+                time.sleep(0.02)
+        finally:
+            for p in procs:
+                p.terminate()
+                p.wait(30)
+    if not last:
+        raise RuntimeError(f"replicas stored {_count_messages(url)} of {n}")
+    return n / (last - first)
+
+
+# -- 3. HTTP ingest ---------------------------------------------------------------------------
+
+
+@contextmanager
+def api_server(url: str, workers: int = 1) -> Iterator[tuple[str, str]]:
+    """``wellspan serve --no-ingest`` on a free port; yields (base URL, admin token)."""
+    upgrade(url)
+    store = Store(url)
+    with store.write() as s:
+        _, token = create_key(s, name="bench", scopes=["admin"])
+    store.dispose()
+    port = _free_port()
+    env = dict(os.environ, WELLSPAN_DATABASE_URL=url, WELLSPAN_MQTT_URL="mqtt://127.0.0.1:9")
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "wellspan",
+            "serve",
+            "--no-ingest",
+            "--port",
+            str(port),
+            "--workers",
+            str(workers),
+        ],
+        cwd=ROOT,
+        env=env,
+        stderr=subprocess.DEVNULL,
+    )
+    base = f"http://127.0.0.1:{port}"
+    try:
+        for _ in range(300):
+            try:
+                if httpx.get(f"{base}/livez", timeout=1).status_code == 200:
+                    break
+            except httpx.HTTPError:
+                time.sleep(0.05)
+        yield base, token
+    finally:
+        proc.terminate()
+        proc.wait(30)
+
+
+def http_rate(
+    url: str, assets: list[str], n: int, *, workers: int, per_request: int = 1000
+) -> float:
+    prepare_store(url, assets)
+    t = datetime(2026, 1, 1, tzinfo=UTC)
+    bodies = []
+    for start in range(0, n, per_request):
+        msgs = [
+            to_readable(_message(i, assets[i % len(assets)], t + timedelta(seconds=i)), LAYOUT)
+            for i in range(start, min(n, start + per_request))
+        ]
+        bodies.append(json.dumps({"messages": msgs}).encode())
+    with api_server(url, workers) as (base, token):
+        headers = {"Authorization": f"Bearer {token}", "content-type": "application/json"}
+        queue = list(bodies)
+        lock = threading.Lock()
+        errors: list[str] = []
+
+        def worker() -> None:
+            with httpx.Client(base_url=base, headers=headers, timeout=120) as client:
+                while True:
+                    with lock:
+                        if not queue:
+                            return
+                        body = queue.pop()
+                    r = client.post("/v1/indicators", content=body)
+                    if r.status_code != 200 or r.json()["stored"] != per_request:
+                        errors.append(r.text[:200])
+
+        threads = [threading.Thread(target=worker) for _ in range(2 * workers)]
+        t0 = time.perf_counter()
+        for th in threads:
+            th.start()
+        for th in threads:
+            th.join()
+        elapsed = time.perf_counter() - t0
+    if errors:
+        raise RuntimeError(f"HTTP ingest failed: {errors[0]}")
+    return n / elapsed
+
+
+# -- 4. history query latency -----------------------------------------------------------------
+
+
+def _rows(assets: int, days: int) -> Iterator[tuple[Any, ...]]:
+    """Hourly messages per asset, oldest first; values as the packed float32 vector."""
+    start = datetime(2026, 1, 1, tzinfo=UTC)
+    rng = np.random.default_rng(0)
+    n_ind = len(LAYOUT.indicators)
+    seq = 0
+    received = datetime.now(UTC)
+    for h in range(days * 24):
+        ws = start + timedelta(hours=h)
+        block = rng.normal(4.0, 0.3, size=(assets, n_ind)).astype("<f4")
+        for a in range(assets):
+            yield (uuid.uuid4(), seq, f"A{a:04d}", ws, block[a].tobytes(), received)
+            seq += 1
+
+
+def fill_sqlite(url: str, assets: int, days: int) -> None:
+    path = url.removeprefix("sqlite:///")
+    conn = sqlite3.connect(path)
+    conn.execute("PRAGMA synchronous=OFF")
+    fmt = "%Y-%m-%d %H:%M:%S.%f"  # SQLAlchemy's SQLite DateTime text form (naive UTC)
+    batch: list[tuple[Any, ...]] = []
+    sql = (
+        "INSERT INTO messages (message_id, gateway_id, sequence, site_id, asset_id, window_start,"
+        " window_s, clock_sync, layout_digest, values_f32, received_at)"
+        f" VALUES (?, '{GATEWAY}', ?, '{SITE}', ?, ?, 10.0, 'synced', '{LAYOUT.digest}', ?, ?)"
+    )
+    for mid, seq, asset, ws, blob, rec in _rows(assets, days):
+        batch.append(
+            (mid.hex, seq, asset, ws.replace(tzinfo=None).strftime(fmt), blob,
+             rec.replace(tzinfo=None).strftime(fmt))
+        )  # fmt: skip
+        if len(batch) == 50_000:
+            conn.executemany(sql, batch)
+            batch.clear()
+    if batch:
+        conn.executemany(sql, batch)
+    conn.commit()
+    conn.execute("ANALYZE")
+    conn.close()
+
+
+def fill_postgres(url: str, assets: int, days: int) -> None:
+    with psycopg.connect(url.replace("postgresql+psycopg://", "postgresql://")) as conn:
+        with (
+            conn.cursor() as cur,
+            cur.copy(
+                "COPY messages (message_id, gateway_id, sequence, site_id, asset_id, window_start,"
+                " window_s, clock_sync, layout_digest, values_f32, received_at) FROM STDIN"
+            ) as copy,
+        ):
+            for mid, seq, asset, ws, blob, rec in _rows(assets, days):
+                copy.write_row(
+                    (mid, GATEWAY, seq, SITE, asset, ws, 10.0, "synced", LAYOUT.digest, blob, rec)
+                )
+        conn.execute("ANALYZE messages")
+
+
+def query_latency(
+    url: str, assets: int, days: int, fill: Callable[[str, int, int], None], queries: int = 300
+) -> tuple[float, float, float]:
+    names = [f"A{a:04d}" for a in range(assets)]
+    prepare_store(url, names)
+    t0 = time.perf_counter()
+    fill(url, assets, days)
+    fill_s = time.perf_counter() - t0
+    rng = np.random.default_rng(1)
+    start = datetime(2026, 1, 1, tzinfo=UTC)
+    end = start + timedelta(days=days)
+    params = {"start": start.isoformat(), "end": end.isoformat(), "limit": "10000"}
+    latencies = []
+    with (
+        api_server(url) as (base, token),
+        httpx.Client(
+            base_url=base, headers={"Authorization": f"Bearer {token}"}, timeout=30
+        ) as client,
+    ):
+        for i in range(queries + 20):
+            asset = names[int(rng.integers(assets))]
+            t = time.perf_counter()
+            r = client.get(f"/v1/assets/{asset}/indicators/de_accel.velocity_rms", params=params)
+            dt = time.perf_counter() - t
+            if r.status_code != 200 or r.json()["count"] != days * 24:
+                raise RuntimeError(f"history query failed: {r.status_code} {r.text[:200]}")
+            if i >= 20:  # the first queries warm caches and connections
+                latencies.append(dt * 1000)
+    lat = np.asarray(latencies)
+    return float(np.percentile(lat, 50)), float(np.percentile(lat, 99)), fill_s
+
+
+# -- layout comparison (the measurement behind store/models.py) -------------------------------
+
+
+def layout_compare(n_messages: int = 20_000, n_ind: int = 24) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        rng = np.random.default_rng(0)
+        vals = rng.normal(size=(n_messages, n_ind)).astype("<f4")
+        assets = 14  # so one asset has ~1,440 messages, the 60-day hourly history
+        start = datetime(2026, 1, 1)
+        rows = [
+            (i, f"A{i % assets:02d}", (start + timedelta(hours=i // assets)).isoformat(" "))
+            for i in range(n_messages)
+        ]
+        results = {}
+        for layout in ("packed", "per_value"):
+            path = Path(tmp) / f"{layout}.db"
+            conn = sqlite3.connect(path)
+            t0 = time.perf_counter()
+            if layout == "packed":
+                conn.execute("CREATE TABLE m (id INTEGER PRIMARY KEY, asset TEXT, ws TEXT, v BLOB)")
+                conn.execute("CREATE INDEX ix ON m (asset, ws)")
+                conn.executemany(
+                    "INSERT INTO m VALUES (?, ?, ?, ?)",
+                    [(i, a, ws, vals[i].tobytes()) for i, a, ws in rows],
+                )
+            else:
+                conn.execute("CREATE TABLE m (id INTEGER PRIMARY KEY, asset TEXT, ws TEXT)")
+                conn.execute(
+                    "CREATE TABLE v (message INTEGER, ind INTEGER, value REAL, "
+                    "PRIMARY KEY (message, ind)) WITHOUT ROWID"
+                )
+                conn.execute("CREATE INDEX ix ON m (asset, ws)")
+                conn.executemany("INSERT INTO m VALUES (?, ?, ?)", rows)
+                conn.executemany(
+                    "INSERT INTO v VALUES (?, ?, ?)",
+                    [(i, j, float(vals[i, j])) for i in range(n_messages) for j in range(n_ind)],
+                )
+            conn.commit()
+            fill = time.perf_counter() - t0
+            reads = []
+            for _ in range(50):
+                t = time.perf_counter()
+                if layout == "packed":
+                    got = [
+                        struct.unpack_from("<f", blob, 4 * 3)[0]
+                        for ws, blob in conn.execute(
+                            "SELECT ws, v FROM m WHERE asset = 'A03' ORDER BY ws"
+                        )
+                    ]
+                else:
+                    got = [
+                        value
+                        for ws, value in conn.execute(
+                            "SELECT m.ws, v.value FROM m JOIN v ON v.message = m.id AND v.ind = 3"
+                            " WHERE m.asset = 'A03' ORDER BY m.ws"
+                        )
+                    ]
+                reads.append(time.perf_counter() - t)
+            conn.close()
+            results[layout] = (fill, path.stat().st_size / 1e6, statistics.median(reads) * 1e3,
+                               len(got))  # fmt: skip
+    print(f"layout comparison, SQLite, {n_messages} messages x {n_ind} indicators")
+    print(f"{'layout':<10} {'fill s':>8} {'size MB':>8} {'read ms':>8} {'points':>7}")
+    for k, (fill, size, read, n) in results.items():
+        print(f"{k:<10} {fill:8.2f} {size:8.1f} {read:8.2f} {n:7d}")
+
+
+# -- main -------------------------------------------------------------------------------------
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawTextHelpFormatter)
+    ap.add_argument("--messages", type=int, default=30_000, help="messages per ingest run")
+    ap.add_argument("--http-messages", type=int, default=40_000)
+    ap.add_argument("--http-workers", type=int, default=2, help="wellspan serve --workers")
+    ap.add_argument(
+        "--replicas", type=int, default=2, help="ingest replicas in a shared-subscription group"
+    )
+    ap.add_argument("--assets", type=int, default=1000, help="assets in the history fill")
+    ap.add_argument("--days", type=int, default=60, help="days of hourly windows per asset")
+    ap.add_argument(
+        "--parts", default="mqtt,http,history", help="comma-separated subset of mqtt,http,history"
+    )
+    ap.add_argument("--history-dialects", default="sqlite,postgresql")
+    ap.add_argument("--layout-compare", action="store_true", help="only the storage comparison")
+    args = ap.parse_args()
+    if args.layout_compare:
+        layout_compare()
+        return 0
+    assets = [f"MAL-P{i}" for i in range(1, 4)]
+    t0 = datetime(2026, 1, 1, tzinfo=UTC)
+    payloads = (
+        []
+        if "mqtt" not in args.parts
+        else [
+            (
+                indicators_topic(SITE, GATEWAY, assets[i % 3]),
+                encode_indicators(_message(i, assets[i % 3], t0 + timedelta(seconds=i)), LAYOUT),
+            )
+            for i in range(args.messages)
+        ]
+    )
+    parts = set(args.parts.split(","))
+
+    class _Table(list[tuple[str, str, str]]):
+        def append(self, row: tuple[str, str, str]) -> None:
+            super().append(row)
+            print(f"  {row[0]}: {row[1]} {row[2]}", file=sys.stderr, flush=True)  # progress
+
+    table = _Table()
+    with tempfile.TemporaryDirectory() as tmp, mosquitto() as port:
+        if "mqtt" in parts:
+            broker = broker_only_rate(port, payloads)
+            table.append(("MQTT broker only (counting subscriber)", f"{broker:,.0f} msg/s", ""))
+            r = ingest_rate(port, f"sqlite:///{tmp}/ingest.db", payloads, assets)
+            table.append(("MQTT -> store, SQLite", f"{r:,.0f} msg/s", f"{100 * r / broker:.0f} %"))
+            with pg_database() as url:
+                r = ingest_rate(port, url, payloads, assets)
+            table.append(
+                ("MQTT -> store, PostgreSQL", f"{r:,.0f} msg/s", f"{100 * r / broker:.0f} %")
+            )
+            k = args.replicas
+            if k > 1:
+                r = ingest_rate_replicas(port, f"sqlite:///{tmp}/replicas.db", payloads, assets, k)
+                table.append(
+                    (f"MQTT -> store, SQLite, {k} replicas", f"{r:,.0f} msg/s",
+                     f"{100 * r / broker:.0f} %")
+                )  # fmt: skip
+                with pg_database() as url:
+                    r = ingest_rate_replicas(port, url, payloads, assets, k)
+                table.append(
+                    (f"MQTT -> store, PostgreSQL, {k} replicas", f"{r:,.0f} msg/s",
+                     f"{100 * r / broker:.0f} %")
+                )  # fmt: skip
+        if "http" in parts:
+            w = args.http_workers
+            r = http_rate(f"sqlite:///{tmp}/http.db", assets, args.http_messages, workers=w)
+            table.append(("HTTP batch ingest, SQLite", f"{r:,.0f} msg/s", f"{w} API workers"))
+            with pg_database() as url:
+                r = http_rate(url, assets, args.http_messages, workers=w)
+            table.append(("HTTP batch ingest, PostgreSQL", f"{r:,.0f} msg/s", f"{w} API workers"))
+        if "history" in parts:
+            n = args.assets * args.days * 24
+            for dialect in args.history_dialects.split(","):
+                if dialect == "sqlite":
+                    p50, p99, fill = query_latency(
+                        f"sqlite:///{tmp}/history.db", args.assets, args.days, fill_sqlite
+                    )
+                else:
+                    with pg_database() as url:
+                        p50, p99, fill = query_latency(url, args.assets, args.days, fill_postgres)
+                table.append(
+                    (
+                        f"history {args.days} d, {n:,} msgs, {dialect}",
+                        f"p50 {p50:.1f} ms, p99 {p99:.1f} ms",
+                        f"fill {fill:.0f} s",
+                    )
+                )
+    print(f"load average during the run: {os.getloadavg()[0]:.1f} (2 cores)")
+    print(f"{'measurement':<44} {'result':<28} {'note'}")
+    for name, result, note in table:
+        print(f"{name:<44} {result:<28} {note}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""HTTP API: one router module per resource, thin handlers over :mod:`prognosis_service.domain`."""

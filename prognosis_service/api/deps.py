@@ -1,0 +1,87 @@
+"""Dependencies as ``Annotated`` aliases: the runtime, sessions and API keys with a scope."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from typing import Annotated
+
+from fastapi import Depends, Request
+from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
+from sqlalchemy.orm import Session
+
+from prognosis_service.api.problems import ProblemError
+from prognosis_service.auth import Principal, verify_token
+from prognosis_service.ingest.consumer import IngestService
+from prognosis_service.ingest.pipeline import Pipeline
+from prognosis_service.settings import Settings
+from prognosis_service.store.engine import Store
+
+__all__ = [
+    "AdminKey",
+    "IngestKey",
+    "ReadSessionDep",
+    "ReaderKey",
+    "Runtime",
+    "RuntimeDep",
+    "require_scope",
+]
+
+
+@dataclass(slots=True)
+class Runtime:
+    """What a running service holds: settings, the store, the pipeline, and the MQTT ingest
+    when it runs in this process."""
+
+    settings: Settings
+    store: Store
+    pipeline: Pipeline
+    ingest: IngestService | None = None
+
+
+def get_runtime(request: Request) -> Runtime:
+    runtime: Runtime = request.app.state.runtime
+    return runtime
+
+
+RuntimeDep = Annotated[Runtime, Depends(get_runtime)]
+
+
+def get_read_session(runtime: RuntimeDep) -> Iterator[Session]:
+    with runtime.store.read() as session:
+        yield session
+
+
+ReadSessionDep = Annotated[Session, Depends(get_read_session)]
+
+_bearer = HTTPBearer(auto_error=False, description="An API key: `Authorization: Bearer wsk_...`")
+_CHALLENGE = {"WWW-Authenticate": 'Bearer realm="wellspan"'}
+
+
+def require_scope(scope: str) -> Callable[..., Principal]:
+    def _check(
+        runtime: RuntimeDep,
+        credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
+    ) -> Principal:
+        if credentials is None:
+            raise ProblemError(
+                401, "an API key is required (Authorization: Bearer <key>)", headers=_CHALLENGE
+            )
+        with runtime.store.read() as session:
+            principal = verify_token(session, credentials.credentials)
+        if principal is None:
+            raise ProblemError(
+                401, "the API key is not valid or has been revoked", headers=_CHALLENGE
+            )
+        if not principal.has_scope(scope):
+            raise ProblemError(
+                403, f"this API key lacks the {scope!r} scope", slug="insufficient-scope"
+            )
+        return principal
+
+    return _check
+
+
+ReaderKey = Annotated[Principal, Depends(require_scope("read"))]
+IngestKey = Annotated[Principal, Depends(require_scope("ingest"))]
+AdminKey = Annotated[Principal, Depends(require_scope("admin"))]
