@@ -9,6 +9,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from edge_agent.dsp.bearing import DefectFrequencies, defect_frequencies
 from edge_agent.windows import ChannelKind
 
 __all__ = ["AssetConfig", "BearingGeometry", "ChannelConfig", "SeverityClass"]
@@ -35,6 +36,16 @@ class BearingGeometry(_Strict):
                 f"d={self.element_diameter_mm:g} mm, D={self.pitch_diameter_mm:g} mm"
             )
         return self
+
+    def defect_frequencies(self, shaft_hz: float) -> DefectFrequencies:
+        """BPFO, BPFI, BSF and FTF in Hz at ``shaft_hz`` (multiples of shaft speed at 1.0)."""
+        return defect_frequencies(
+            shaft_hz,
+            n_elements=self.n_elements,
+            element_diameter=self.element_diameter_mm,
+            pitch_diameter=self.pitch_diameter_mm,
+            contact_angle_deg=self.contact_angle_deg,
+        )
 
 
 class SeverityClass(_Strict):

@@ -32,7 +32,6 @@ import numpy as np
 import numpy.typing as npt
 
 from edge_agent.assets import AssetConfig, BearingGeometry, ChannelConfig
-from edge_agent.dsp.bearing import defect_frequencies
 from edge_agent.dsp.envelope import _line_levels, _select_band_core, _ses_from_spectrum
 from edge_agent.dsp.process import _high_band_from_spectrum
 from edge_agent.dsp.quality import QualityResult, clean_window
@@ -654,11 +653,5 @@ class Extractor:
 
 
 def _defect_multiples(g: BearingGeometry) -> FloatArray:
-    f = defect_frequencies(
-        1.0,
-        n_elements=g.n_elements,
-        element_diameter=g.element_diameter_mm,
-        pitch_diameter=g.pitch_diameter_mm,
-        contact_angle_deg=g.contact_angle_deg,
-    )
+    f = g.defect_frequencies(1.0)
     return np.array([f.ftf, f.bsf, 2 * f.bsf, f.bpfo, f.bpfi])

@@ -107,16 +107,8 @@ def bearing_defect_frequencies(geometry: BearingGeometry, shaft_hz: float) -> De
     >>> round(bearing_defect_frequencies(g, 1.0).bpfo_hz, 3)
     3.585
     """
-    r = geometry.element_diameter_mm / geometry.pitch_diameter_mm
-    r *= math.cos(math.radians(geometry.contact_angle_deg))
-    n = geometry.n_elements
-    ratio_dd = geometry.pitch_diameter_mm / geometry.element_diameter_mm
-    return DefectFrequencies(
-        ftf_hz=0.5 * shaft_hz * (1.0 - r),
-        bsf_hz=0.5 * ratio_dd * shaft_hz * (1.0 - r * r),
-        bpfo_hz=0.5 * n * shaft_hz * (1.0 - r),
-        bpfi_hz=0.5 * n * shaft_hz * (1.0 + r),
-    )
+    f = geometry.defect_frequencies(shaft_hz)
+    return DefectFrequencies(ftf_hz=f.ftf, bsf_hz=f.bsf, bpfo_hz=f.bpfo, bpfi_hz=f.bpfi)
 
 
 def velocity_to_accel_peak_g(

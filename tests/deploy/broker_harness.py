@@ -22,9 +22,10 @@ from pathlib import Path
 from typing import Any
 
 import paho.mqtt.client as mqtt
-import pytest
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
+
+from tests.brokers import require_tool
 
 DEPLOY = Path(__file__).resolve().parents[2] / "deploy"
 MOSQUITTO = Path("/usr/sbin/mosquitto")
@@ -41,8 +42,7 @@ GATEWAYS = (
 
 
 def _need(binary: Path) -> None:
-    if not binary.exists():
-        pytest.skip(f"{binary} not installed (Debian package mosquitto)")
+    require_tool(binary.exists(), f"{binary} not installed (Debian package mosquitto)")
 
 
 def free_port() -> int:

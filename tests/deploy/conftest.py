@@ -8,13 +8,13 @@ from pathlib import Path
 
 import pytest
 
+from tests.brokers import require_tool
 from tests.deploy.broker_harness import Broker, Pki, make_broker, make_pki
 
 
 @pytest.fixture(scope="session")
 def pki(tmp_path_factory: pytest.TempPathFactory) -> Pki:
-    if shutil.which("openssl") is None:
-        pytest.skip("openssl not installed")
+    require_tool(shutil.which("openssl") is not None, "openssl not installed")
     return make_pki(tmp_path_factory.mktemp("pki"))
 
 
