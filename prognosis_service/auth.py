@@ -23,7 +23,7 @@ from prognosis_service.store.models import ApiKey
 
 __all__ = ["SCOPES", "Principal", "create_key", "list_keys", "revoke_key", "verify_token"]
 
-SCOPES = ("read", "ingest", "admin")
+SCOPES = ("read", "ingest", "operate", "admin")
 _TOKEN = re.compile(r"^wsk_([0-9a-f]{12})_([A-Za-z0-9_-]{43})$")
 
 
@@ -37,7 +37,10 @@ class Principal:
     sites: frozenset[str] | None
 
     def has_scope(self, scope: str) -> bool:
-        return scope in self.scopes or "admin" in self.scopes
+        # admin implies every scope; operate (acknowledge alerts, record maintenance) implies read
+        if scope in self.scopes or "admin" in self.scopes:
+            return True
+        return scope == "read" and "operate" in self.scopes
 
     def may_see(self, site: str) -> bool:
         return self.sites is None or site in self.sites

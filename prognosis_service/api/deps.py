@@ -20,6 +20,7 @@ from prognosis_service.store.engine import Store
 __all__ = [
     "AdminKey",
     "IngestKey",
+    "OperatorKey",
     "ReadSessionDep",
     "ReaderKey",
     "Runtime",
@@ -84,4 +85,5 @@ def require_scope(scope: str) -> Callable[..., Principal]:
 
 ReaderKey = Annotated[Principal, Depends(require_scope("read"))]
 IngestKey = Annotated[Principal, Depends(require_scope("ingest"))]
+OperatorKey = Annotated[Principal, Depends(require_scope("operate"))]
 AdminKey = Annotated[Principal, Depends(require_scope("admin"))]

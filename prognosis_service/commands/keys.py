@@ -20,8 +20,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "--scope",
         action="append",
         required=True,
-        choices=("read", "ingest", "admin"),
-        help="repeatable; admin implies read and ingest",
+        choices=("read", "ingest", "operate", "admin"),
+        help="repeatable; operate (acknowledge alerts, log maintenance) implies read; admin: all",
     )
     create.add_argument("--site", action="append", help="limit the key to a site (repeatable)")
     create.add_argument("--json", action="store_true", help="machine-readable output")
