@@ -11,7 +11,13 @@ from sqlalchemy.orm import Mapped, mapped_column
 
 from prognosis_service.store.models import Base, BigId
 
-__all__ = ["AlertConditionRow", "AlertRow", "DeliveryRow", "SubscriptionRow"]
+__all__ = [
+    "AlertConditionRow",
+    "AlertRow",
+    "AlertRulesDocument",
+    "DeliveryRow",
+    "SubscriptionRow",
+]
 
 
 class AlertRow(Base):
@@ -108,3 +114,18 @@ class DeliveryRow(Base):
     last_attempt_at: Mapped[datetime | None]
     delivered_at: Mapped[datetime | None]
     created_at: Mapped[datetime]
+
+
+class AlertRulesDocument(Base):
+    """Alert rules set through the API (admin); they override the rules file while present.
+
+    One row per version; the newest is in force. Keeping the old versions shows who changed
+    what and when, and lets an operator go back.
+    """
+
+    __tablename__ = "alert_rules_documents"
+
+    version: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    body: Mapped[dict[str, Any]]
+    set_by: Mapped[str] = mapped_column(String(100))
+    set_at: Mapped[datetime]

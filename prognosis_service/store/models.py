@@ -54,6 +54,7 @@ __all__ = [
     "QuarantineRow",
     "Site",
     "UtcDateTime",
+    "import_all_models",
 ]
 
 NAMING_CONVENTION = {
@@ -256,3 +257,16 @@ class IdempotencyRecord(Base):
     status_code: Mapped[int] = mapped_column(Integer)
     response: Mapped[dict[str, Any]]
     created_at: Mapped[datetime]
+
+
+def import_all_models() -> None:
+    """Import every ``prognosis_service.*.models`` module so ``Base.metadata`` holds every table
+    (packages such as ``alerts`` register their tables on this shared Base)."""
+    import importlib
+    import pkgutil
+
+    import prognosis_service
+
+    for mod in pkgutil.walk_packages(prognosis_service.__path__, "prognosis_service."):
+        if mod.name.endswith(".models"):
+            importlib.import_module(mod.name)

@@ -5,8 +5,9 @@ from __future__ import annotations
 from alembic import context
 from sqlalchemy import create_engine, pool
 
-from prognosis_service.store.models import Base
+from prognosis_service.store.models import Base, import_all_models
 
+import_all_models()
 config = context.config
 target_metadata = Base.metadata
 
