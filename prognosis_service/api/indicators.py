@@ -9,7 +9,14 @@ from starlette.concurrency import run_in_threadpool
 
 from prognosis_service.api.deps import IngestKey, RuntimeDep
 from prognosis_service.api.schemas import IngestResult
-from prognosis_service.domain.http_ingest import MAX_BODY_BYTES, PayloadTooLargeError, ingest_batch
+from prognosis_service.domain.http_ingest import (
+    MAX_BODY_BYTES,
+    PayloadTooLargeError,
+    check_idempotency_key,
+    decode_batch,
+    ingest_batch,
+    parse_batch,
+)
 from prognosis_service.ingest.consumer import record_outcome
 from prognosis_service.metrics import METRICS
 
@@ -36,9 +43,13 @@ async def post_indicators(
     body = await request.body()
 
     def work() -> tuple[dict[str, object], bool]:
+        check_idempotency_key(idempotency_key)
+        batch = parse_batch(body, principal)
+        with runtime.store.read() as session:  # decoding outside the write lock
+            decode_batch(session, runtime.pipeline, batch)
         with runtime.store.write() as session:
             result, outcome = ingest_batch(
-                session, runtime.pipeline, principal, body, idempotency_key=idempotency_key
+                session, runtime.pipeline, principal, batch, idempotency_key=idempotency_key
             )
         if outcome is not None:
             record_outcome(METRICS, outcome, "http")

@@ -15,9 +15,9 @@ retained layouts. Their inserts are idempotent, so several replicas storing them
 from __future__ import annotations
 
 import logging
-import queue
 import threading
 import time
+from collections import deque
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Any
@@ -101,7 +101,11 @@ class IngestService:
         self.store = store
         self.pipeline = pipeline
         self.metrics = metrics
-        self._queue: queue.Queue[_Delivery] = queue.Queue()
+        # A deque and an event rather than queue.Queue: ``put`` with its lock and notify cost the
+        # network thread a fifth of its time in a profile (py-spy, 60,000 messages), and the
+        # writer's per-item ``get`` another 3 %. deque.append/popleft are atomic.
+        self._queue: deque[_Delivery] = deque()
+        self._arrived = threading.Event()
         self._stop = threading.Event()
         self._connected = threading.Event()
         self._writer: threading.Thread | None = None
@@ -123,7 +127,7 @@ class IngestService:
         return self.connected and self._writer is not None and self._writer.is_alive()
 
     def queue_depth(self) -> int:
-        return self._queue.qsize()
+        return len(self._queue)
 
     def wait_connected(self, timeout: float) -> bool:
         return self._connected.wait(timeout)
@@ -214,32 +218,44 @@ class IngestService:
             received_at=datetime.now(UTC),
             retained=bool(message.retain),
         )
-        self._queue.put(_Delivery(item, message.mid, message.qos, self._connection))
+        self._queue.append(_Delivery(item, message.mid, message.qos, self._connection))
+        if not self._arrived.is_set():
+            self._arrived.set()
 
     # -- writer thread ---------------------------------------------------------------------------
 
+    def _drain(self, batch: list[_Delivery], limit: int) -> None:
+        q = self._queue
+        while q and len(batch) < limit:
+            batch.append(q.popleft())
+
     def _take_batch(self) -> list[_Delivery]:
         s = self.settings
-        try:
-            first = self._queue.get(timeout=0.2)
-        except queue.Empty:
-            return []
-        batch = [first]
+        limit = s.ingest_batch_max
+        batch: list[_Delivery] = []
+        self._drain(batch, limit)
+        if not batch:
+            # Idle: clear, look once more (an append may have come before the clear), then
+            # sleep until the network thread sets the event again. While busy the event stays
+            # set and the network thread pays one attribute read per message.
+            self._arrived.clear()
+            self._drain(batch, limit)
+            if not batch:
+                self._arrived.wait(0.2)
+                self._drain(batch, limit)
+                if not batch:
+                    return batch
         deadline = time.monotonic() + s.ingest_batch_wait_s
-        while len(batch) < s.ingest_batch_max:
+        while len(batch) < limit:
             remaining = deadline - time.monotonic()
-            try:
-                batch.append(
-                    self._queue.get(timeout=remaining)
-                    if remaining > 0
-                    else self._queue.get_nowait()
-                )
-            except queue.Empty:
+            if remaining <= 0:
                 break
+            time.sleep(min(remaining, 0.002))
+            self._drain(batch, limit)
         return batch
 
     def _write_loop(self) -> None:
-        while not (self._stop.is_set() and self._queue.empty()):
+        while not (self._stop.is_set() and not self._queue):
             batch = self._take_batch()
             if not batch:
                 continue
