@@ -14,21 +14,37 @@ Every key, its default and its meaning (TOML keys are the field names, without t
     ingest_batch_wait_s = 0.05                # longest wait to fill a batch
     future_tolerance_s = 600                  # window starts further ahead are quarantined
     silent_after_s = 3600                     # an online gateway unheard this long is "silent"
+    assess_interval_s = 30                    # assessment worker poll period (with ingest)
+    diagnosis_model_path = ""                 # fault classifier file; "" = the built-in one
+    rate_limit_per_s = 100                    # API requests per second per key, sustained (0: off)
+    rate_limit_burst = 500                    # requests a key may send at once above that rate
+    alerts_seal_key = ""                      # seals webhook secrets: base64url of >= 32 bytes
+    alert_rules_path = ""                     # alert rules TOML (empty: built-in defaults)
+    alerts_source = "/wellspan/prognosis-service"   # CloudEvents source of alert events
+    alerts_check_interval_s = 60              # silence check and rules refresh period
+    webhook_allow_private = false             # true: webhooks may target private/loopback hosts
+    webhook_allow_http = false                # true: plain http webhook URLs are accepted
+    webhook_allowed_networks = []             # CIDRs accepted though private, e.g. ["10.20.0.0/16"]
+    delivery_poll_s = 1.0                     # delivery worker's wait when nothing is due
 
 ``prognosis_service/service.sample.toml`` is the commented sample. The file is named by
 ``WELLSPAN_CONFIG`` (or ``--config`` on the command line); unknown keys are
-errors. Outside development the broker must be reached with credentials that are not a default.
+errors. Outside development the broker must be reached with credentials that are not a default,
+and ``alerts_seal_key`` must be set: in development an empty key means a fixed key that is no
+secret. A key is 32 random bytes, URL-safe base64: ``openssl rand -base64 32 | tr '+/' '-_'``.
 """
 
 from __future__ import annotations
 
+import base64
+import ipaddress
 import os
 import tomllib
 from pathlib import Path
 from typing import Any, Literal
 from urllib.parse import urlsplit
 
-from pydantic import Field, ValidationError, field_validator, model_validator
+from pydantic import Field, SecretStr, ValidationError, field_validator, model_validator
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 __all__ = ["DEFAULT_SECRETS", "Settings", "SettingsError", "load_settings"]
@@ -55,6 +71,18 @@ class Settings(BaseSettings):
     ingest_batch_wait_s: float = Field(default=0.05, gt=0, le=10)
     future_tolerance_s: float = Field(default=600.0, ge=0)
     silent_after_s: float = Field(default=3600.0, gt=0)
+    assess_interval_s: float = Field(default=30.0, gt=0, le=86400)
+    diagnosis_model_path: str = ""
+    rate_limit_per_s: float = Field(default=100.0, ge=0)
+    rate_limit_burst: int = Field(default=500, ge=1)
+    alerts_seal_key: SecretStr = SecretStr("")
+    alert_rules_path: Path | None = None
+    alerts_source: str = Field(default="/wellspan/prognosis-service", min_length=1, max_length=200)
+    alerts_check_interval_s: float = Field(default=60.0, gt=0, le=86400)
+    webhook_allow_private: bool = False
+    webhook_allow_http: bool = False
+    webhook_allowed_networks: tuple[str, ...] = ()
+    delivery_poll_s: float = Field(default=1.0, gt=0, le=60)
 
     @field_validator("database_url")
     @classmethod
@@ -77,6 +105,43 @@ class Settings(BaseSettings):
             )
         return v
 
+    @field_validator("alert_rules_path", mode="before")
+    @classmethod
+    def _empty_path_is_none(cls, v: object) -> object:
+        return None if v == "" else v
+
+    @field_validator("alert_rules_path")
+    @classmethod
+    def _rules_file_valid(cls, v: Path | None) -> Path | None:
+        if v is not None:
+            from prognosis_service.alerts.rules import load_rules
+
+            load_rules(v)  # AlertRulesError (a ValueError) names the file, line and key
+        return v
+
+    @field_validator("webhook_allowed_networks")
+    @classmethod
+    def _networks(cls, v: tuple[str, ...]) -> tuple[str, ...]:
+        for net in v:
+            try:
+                ipaddress.ip_network(net, strict=False)
+            except ValueError:
+                raise ValueError(f"must hold networks (CIDR), got {net!r}") from None
+        return v
+
+    @field_validator("alerts_seal_key")
+    @classmethod
+    def _seal_key_readable(cls, v: SecretStr) -> SecretStr:
+        text = v.get_secret_value()
+        if text:
+            try:
+                key = base64.urlsafe_b64decode(text + "=" * (-len(text) % 4))
+            except (ValueError, TypeError):
+                raise ValueError("alerts_seal_key must be URL-safe base64 text") from None
+            if len(key) < 32:
+                raise ValueError(f"alerts_seal_key must decode to >= 32 bytes, got {len(key)}")
+        return v
+
     @model_validator(mode="after")
     def _no_default_secrets_in_production(self) -> Settings:
         if self.environment != "development":
@@ -88,6 +153,11 @@ class Settings(BaseSettings):
             db = urlsplit(self.database_url)
             if db.password is not None and db.password in DEFAULT_SECRETS:
                 raise ValueError("database_url carries a default password; refused in production")
+            if self.alerts_seal_key.get_secret_value() in DEFAULT_SECRETS:
+                raise ValueError(
+                    "alerts_seal_key (WELLSPAN_ALERTS_SEAL_KEY) must be set outside development: "
+                    "it seals the webhook secrets"
+                )
         return self
 
     @property

@@ -44,8 +44,8 @@ from prognosis_service.alerts.signing import (
     signature_header,
 )
 from prognosis_service.alerts.ssrf import TargetPolicy, TargetRefusedError, check_target
-from prognosis_service.alerts.webhooks import CONTENT_TYPE
-from prognosis_service.store.engine import Store, insert_for
+from prognosis_service.alerts.webhooks import CONTENT_TYPE, insert_deliveries
+from prognosis_service.store.engine import Store
 
 __all__ = [
     "ATTEMPT_HEADER",
@@ -173,29 +173,15 @@ class SqlDeliveryRepository:
         subscription_ids: Sequence[uuid.UUID],
         now: datetime,
     ) -> int:
-        if not subscription_ids:
-            return 0
-        rows = [
-            {
-                "event_id": event_id,
-                "subscription_id": sid,
-                "event_type": event_type,
-                "body": body,
-                "state": "pending",
-                "attempts": 0,
-                "next_attempt_at": now,
-                "created_at": now,
-            }
-            for sid in subscription_ids
-        ]
         with self.store.write() as s:
-            stmt = (
-                insert_for(s)(DeliveryRow)
-                .values(rows)
-                .on_conflict_do_nothing(index_elements=["event_id", "subscription_id"])
-                .returning(DeliveryRow.delivery_id)
+            return insert_deliveries(
+                s,
+                event_id=event_id,
+                event_type=event_type,
+                body=body,
+                subscription_ids=subscription_ids,
+                now=now,
             )
-            return len(s.execute(stmt).all())
 
     def claim_due(
         self, *, now: datetime, limit: int, lease_s: float, worker_id: str
@@ -267,34 +253,42 @@ class SqlDeliveryRepository:
             DeliveryRow.state == "in_flight",
         )
 
-    def mark_delivered(self, delivery: ClaimedDelivery, *, status: int, at: datetime) -> bool:
+    def _settle(
+        self,
+        delivery: ClaimedDelivery,
+        row: dict[str, object],
+        subscription: dict[str, object],
+    ) -> bool:
+        """Update our claimed row, then its subscription's delivery health, in one transaction;
+        False (and nothing written) when the lease had passed to another worker."""
         with self.store.write() as s:
             res = s.execute(
                 update(DeliveryRow)
                 .where(self._mine(delivery))
-                .values(
-                    state="delivered",
-                    delivered_at=at,
-                    last_status=status,
-                    last_error=None,
-                    lease_expires_at=None,
-                )
+                .values(lease_expires_at=None, **row)
                 .execution_options(synchronize_session=False)
             )
             if int(getattr(res, "rowcount", 0) or 0) != 1:
-                return False  # the lease had passed to another worker
+                return False
             s.execute(
                 update(SubscriptionRow)
                 .where(SubscriptionRow.subscription_id == delivery.subscription_id)
-                .values(
-                    last_status=status,
-                    last_error=None,
-                    last_attempt_at=at,
-                    last_delivered_at=at,
-                    consecutive_failures=0,
-                )
+                .values(**subscription)
             )
             return True
+
+    def mark_delivered(self, delivery: ClaimedDelivery, *, status: int, at: datetime) -> bool:
+        return self._settle(
+            delivery,
+            {"state": "delivered", "delivered_at": at, "last_status": status, "last_error": None},
+            {
+                "last_status": status,
+                "last_error": None,
+                "last_attempt_at": at,
+                "last_delivered_at": at,
+                "consecutive_failures": 0,
+            },
+        )
 
     def mark_failed(
         self,
@@ -308,35 +302,19 @@ class SqlDeliveryRepository:
     ) -> bool:
         error = error[:_ERROR_MAX]
         if next_attempt_at is not None:
-            values: dict[str, object] = {"state": "pending", "next_attempt_at": next_attempt_at}
+            state: dict[str, object] = {"state": "pending", "next_attempt_at": next_attempt_at}
         else:
-            values = {"state": "cancelled" if cancel else "failed"}
-        with self.store.write() as s:
-            res = s.execute(
-                update(DeliveryRow)
-                .where(self._mine(delivery))
-                .values(
-                    last_status=status,
-                    last_error=error,
-                    lease_expires_at=None,
-                    claim_token=None,
-                    **values,
-                )
-                .execution_options(synchronize_session=False)
-            )
-            if int(getattr(res, "rowcount", 0) or 0) != 1:
-                return False
-            s.execute(
-                update(SubscriptionRow)
-                .where(SubscriptionRow.subscription_id == delivery.subscription_id)
-                .values(
-                    last_status=status,
-                    last_error=error,
-                    last_attempt_at=at,
-                    consecutive_failures=SubscriptionRow.consecutive_failures + 1,
-                )
-            )
-            return True
+            state = {"state": "cancelled" if cancel else "failed"}
+        return self._settle(
+            delivery,
+            {"last_status": status, "last_error": error, "claim_token": None, **state},
+            {
+                "last_status": status,
+                "last_error": error,
+                "last_attempt_at": at,
+                "consecutive_failures": SubscriptionRow.consecutive_failures + 1,
+            },
+        )
 
     def release(self, delivery: ClaimedDelivery, *, cancel: bool = False) -> bool:
         with self.store.write() as s:
@@ -594,23 +572,13 @@ class DeliveryWorker:
             repo.mark_delivered(delivery, status=status, at=at)
             return None
         if status == 410:
-            repo.mark_failed(
+            return self._stop_subscription(
                 delivery,
-                status=status,
-                error=outcome.error,
-                at=at,
-                next_attempt_at=None,
-                cancel=True,
-            )
-            repo.pause_subscription(
-                delivery.subscription_id,
+                outcome,
+                at,
                 reason="the receiver answered 410 Gone: it no longer wants these events",
-                status=status,
-                error=outcome.error,
-                at=at,
                 gone=True,
             )
-            return True
         if outcome.retry_after_s is not None:
             delay = min(outcome.retry_after_s, self.retry.max_retry_after_s)
         else:
@@ -618,24 +586,43 @@ class DeliveryWorker:
         next_at = at + timedelta(seconds=delay)
         budget_end = delivery.created_at + timedelta(seconds=self.retry.time_budget_s)
         if delivery.attempts >= self.retry.max_attempts or next_at > budget_end:
-            repo.mark_failed(
-                delivery, status=status, error=outcome.error, at=at, next_attempt_at=None
-            )
-            repo.pause_subscription(
-                delivery.subscription_id,
+            return self._stop_subscription(
+                delivery,
+                outcome,
+                at,
                 reason=(
                     f"event {delivery.event_id} failed {delivery.attempts} attempts; "
                     "deliveries paused until the subscription is resumed"
                 ),
-                status=status,
-                error=outcome.error,
-                at=at,
+                gone=False,
             )
-            return False
         repo.mark_failed(
             delivery, status=status, error=outcome.error, at=at, next_attempt_at=next_at
         )
         return None
+
+    def _stop_subscription(
+        self, delivery: ClaimedDelivery, outcome: _Outcome, at: datetime, *, reason: str, gone: bool
+    ) -> bool:
+        """Give the delivery up and pause the subscription (``gone``: for good, 410); returns
+        ``gone`` for :meth:`_attempt`."""
+        self.repository.mark_failed(
+            delivery,
+            status=outcome.status,
+            error=outcome.error,
+            at=at,
+            next_attempt_at=None,
+            cancel=gone,
+        )
+        self.repository.pause_subscription(
+            delivery.subscription_id,
+            reason=reason,
+            status=outcome.status,
+            error=outcome.error,
+            at=at,
+            gone=gone,
+        )
+        return gone
 
 
 # ------------------------------------------------------------------------------------------ CLI
@@ -644,10 +631,12 @@ class DeliveryWorker:
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="python -m prognosis_service.alerts.delivery",
-        description="Run a webhook delivery worker. The seal key is read from the environment "
-        "variable WELLSPAN_ALERTS_SEAL_KEY (URL-safe base64).",
+        description="Run a webhook delivery worker. The database, the seal key "
+        "(alerts_seal_key, WELLSPAN_ALERTS_SEAL_KEY) and the target policy come from the "
+        "service settings; the options below override them.",
     )
-    p.add_argument("--database-url", required=True)
+    p.add_argument("--config", default=None, help="service settings TOML")
+    p.add_argument("--database-url", default=None)
     p.add_argument("--worker-id", default=None)
     p.add_argument("--poll-s", type=float, default=1.0)
     p.add_argument("--lease-s", type=float, default=120.0)
@@ -663,23 +652,30 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.INFO, stream=sys.stderr, format="%(asctime)s %(message)s")
-    key = os.environ.get("WELLSPAN_ALERTS_SEAL_KEY")
-    if not key:
-        print("error: WELLSPAN_ALERTS_SEAL_KEY is not set", file=sys.stderr)
-        return 2
+    from prognosis_service.alerts.runtime import sealer_for, target_policy_for
+    from prognosis_service.settings import SettingsError, load_settings
+
     try:
-        sealer = SecretSealer.from_text(key)
+        overrides = {"database_url": args.database_url} if args.database_url else {}
+        settings = load_settings(args.config, **overrides)
+    except SettingsError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    policy = target_policy_for(settings)
+    try:
+        sealer = sealer_for(settings)
         retry = RetryPolicy(
             base_delay_s=args.base_delay_s,
             max_delay_s=args.max_delay_s,
             max_attempts=args.max_attempts,
         )
-        store = Store(args.database_url)
+        store = Store(settings.database_url)
         worker = DeliveryWorker(
             repository=SqlDeliveryRepository(store),
             sealer=sealer,
             target_policy=TargetPolicy(
-                allow_private_targets=args.allow_private_targets, allow_http=args.allow_http
+                allow_private_targets=args.allow_private_targets or policy.allow_private_targets,
+                allow_http=args.allow_http or policy.allow_http,
             ),
             retry=retry,
             lease_s=args.lease_s,

@@ -69,6 +69,7 @@ __all__ = [
     "ZoneRule",
     "condition_key",
     "load_rules",
+    "parse_rules",
     "severity_rank",
     "severity_zone",
 ]
@@ -295,16 +296,40 @@ def load_rules(path: str | Path) -> AlertRulesConfig:
     try:
         return AlertRulesConfig.model_validate(data)
     except ValidationError as exc:
-        err = exc.errors()[0]
-        loc = [str(p) for p in err["loc"]]
-        msg = err["msg"].removeprefix("Value error, ")
-        if not loc:
-            # an override's own message carries its dotted key first
-            key, _, msg = msg.partition(": ")
-            loc = key.split(".")
+        loc, msg = _first_problem(exc)
         line = _line_of(text, loc)
         where = f", line {line}" if line else ""
         raise AlertRulesError(f"{path}{where}: {'.'.join(loc)}: {msg}") from None
+
+
+def _first_problem(exc: ValidationError) -> tuple[list[str], str]:
+    """The key path and message of the first error of a rules validation."""
+    err = exc.errors()[0]
+    loc = [str(p) for p in err["loc"]]
+    msg = err["msg"].removeprefix("Value error, ")
+    if not loc:
+        # an override's own message carries its dotted key first
+        key, _, msg = msg.partition(": ")
+        loc = key.split(".")
+    return loc, msg
+
+
+def parse_rules(data: object) -> AlertRulesConfig:
+    """Rule settings from a JSON-like mapping (same keys as the TOML file).
+
+    Raises
+    ------
+    AlertRulesError
+        ``"<dotted key>: <what is wrong>"``, e.g. ``"defaults.anomaly.limit: Input should be
+        greater than 0"``.
+    """
+    if not isinstance(data, Mapping):
+        raise AlertRulesError(f"rules must be an object, got {type(data).__name__}")
+    try:
+        return AlertRulesConfig.model_validate(data)
+    except ValidationError as exc:
+        loc, msg = _first_problem(exc)
+        raise AlertRulesError(f"{'.'.join(loc)}: {msg}") from None
 
 
 # ----------------------------------------------------------------------------------- readings

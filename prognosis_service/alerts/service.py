@@ -13,13 +13,14 @@ from collections.abc import Callable, Iterable, Sequence
 from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import and_, func, or_, select
 from sqlalchemy.orm import Session
 
 from prognosis_service.alerts.models import AlertConditionRow, AlertRow
 from prognosis_service.alerts.rules import (
     AlertChange,
     AlertEngine,
+    AlertKind,
     AlertRecord,
     AlertState,
     ConditionState,
@@ -28,11 +29,19 @@ from prognosis_service.alerts.rules import (
     condition_key,
 )
 from prognosis_service.alerts.webhooks import DEFAULT_SOURCE, enqueue_deliveries
-from prognosis_service.domain.errors import ConflictError, InvalidInputError, NotFoundError
+from prognosis_service.auth import Principal
+from prognosis_service.domain.errors import (
+    ConflictError,
+    ForbiddenError,
+    InvalidInputError,
+    NotFoundError,
+)
+from prognosis_service.domain.pagination import decode_cursor, encode_cursor
 from prognosis_service.store.engine import Store, insert_for
 from prognosis_service.store.models import Asset, Gateway, MessageRow
 
 __all__ = [
+    "ALERT_STATE_FILTERS",
     "AlertService",
     "get_alert",
     "list_alerts",
@@ -122,35 +131,98 @@ def _parse(value: object) -> datetime | None:
     return datetime.fromisoformat(value.replace("Z", "+00:00"))
 
 
-def get_alert(session: Session, alert_id: uuid.UUID) -> AlertRow:
+def get_alert(
+    session: Session, alert_id: uuid.UUID, principal: Principal | None = None
+) -> AlertRow:
+    """One alert; with ``principal``, only when that key may see the alert's site.
+
+    Raises
+    ------
+    NotFoundError
+        Also for another site's alert, so a site-limited key cannot learn that it exists.
+    """
     row = session.get(AlertRow, alert_id)
-    if row is None:
+    if row is None or (principal is not None and not principal.may_see(row.site_id)):
         raise NotFoundError("alert not found")
     return row
 
 
+ALERT_STATE_FILTERS: dict[str, tuple[str, ...]] = {
+    "live": ("open", "acknowledged"),
+    "open": ("open",),
+    "acknowledged": ("acknowledged",),
+    "resolved": ("resolved",),
+}
+
+
+def _alert_cursor(cursor: str) -> tuple[datetime, uuid.UUID]:
+    opened, last_id = decode_cursor(cursor, 2)
+    try:
+        t, after = _parse(opened), uuid.UUID(str(last_id))
+    except ValueError:
+        t = None
+    if t is None:
+        raise InvalidInputError("cursor is not valid; pass next_cursor back unchanged")
+    return t, after
+
+
 def list_alerts(
     session: Session,
+    principal: Principal | None = None,
     *,
     site: str | None = None,
     asset_id: str | None = None,
-    states: Sequence[str] | None = None,
+    state: str | None = None,
+    kind: str | None = None,
     limit: int = 100,
-    before: datetime | None = None,
-) -> Sequence[AlertRow]:
-    """Alerts newest first; page with ``before`` = the last row's ``opened_at``."""
+    cursor: str | None = None,
+) -> tuple[list[AlertRow], str | None]:
+    """Alerts newest first (by ``opened_at``, then id) and the cursor of the next page.
+
+    ``state`` is ``live`` (open or acknowledged), ``open``, ``acknowledged`` or ``resolved``; a
+    key limited to sites sees only those sites' alerts.
+
+    Raises
+    ------
+    InvalidInputError
+        For an unknown state or kind, a bad limit or cursor.
+    ForbiddenError
+        When ``site`` is not one the key may see.
+    """
     if not 1 <= limit <= 1000:
         raise InvalidInputError(f"limit must be in [1, 1000], got {limit}")
     q = select(AlertRow)
+    if state is not None:
+        if state not in ALERT_STATE_FILTERS:
+            raise InvalidInputError(
+                f"state must be one of {list(ALERT_STATE_FILTERS)}, got {state!r}"
+            )
+        q = q.where(AlertRow.state.in_(ALERT_STATE_FILTERS[state]))
+    if kind is not None:
+        kinds = [k.value for k in AlertKind]
+        if kind not in kinds:
+            raise InvalidInputError(f"kind must be one of {kinds}, got {kind!r}")
+        q = q.where(AlertRow.kind == kind)
     if site is not None:
+        if principal is not None and not principal.may_see(site):
+            raise ForbiddenError(f"this key may not read site {site!r}")
         q = q.where(AlertRow.site_id == site)
+    if principal is not None and principal.sites is not None:
+        q = q.where(AlertRow.site_id.in_(sorted(principal.sites)))
     if asset_id is not None:
         q = q.where(AlertRow.asset_id == asset_id)
-    if states:
-        q = q.where(AlertRow.state.in_(list(states)))
-    if before is not None:
-        q = q.where(AlertRow.opened_at < before)
-    return session.scalars(q.order_by(AlertRow.opened_at.desc()).limit(limit)).all()
+    if cursor:
+        t, after = _alert_cursor(cursor)
+        q = q.where(
+            or_(AlertRow.opened_at < t, and_(AlertRow.opened_at == t, AlertRow.alert_id < after))
+        )
+    q = q.order_by(AlertRow.opened_at.desc(), AlertRow.alert_id.desc()).limit(limit + 1)
+    rows = list(session.scalars(q))
+    if len(rows) <= limit:
+        return rows, None
+    rows = rows[:limit]
+    last = rows[-1]
+    return rows, encode_cursor(last.opened_at.isoformat(), str(last.alert_id))
 
 
 def silence_readings(session: Session, *, now: datetime) -> list[LastHeardReading]:
@@ -253,11 +325,18 @@ class AlertService:
         return changes
 
     def _lifecycle(
-        self, alert_id: uuid.UUID, action: str, *, by: str, note: str, at: datetime | None
+        self,
+        alert_id: uuid.UUID,
+        action: str,
+        *,
+        by: str,
+        note: str,
+        at: datetime | None,
+        principal: Principal | None,
     ) -> AlertChange:
         at = at or self.clock()
         with self.store.write() as s:
-            row = get_alert(s, alert_id)
+            row = get_alert(s, alert_id, principal)
             if row.state == "resolved":
                 raise ConflictError("alert is already resolved")
             key = condition_key(
@@ -279,16 +358,31 @@ class AlertService:
         return change
 
     def acknowledge(
-        self, alert_id: uuid.UUID, *, by: str, note: str = "", at: datetime | None = None
+        self,
+        alert_id: uuid.UUID,
+        *,
+        by: str,
+        note: str = "",
+        at: datetime | None = None,
+        principal: Principal | None = None,
     ) -> AlertChange:
-        """open → acknowledged. Raises NotFoundError, or ConflictError when not open."""
-        return self._lifecycle(alert_id, "acknowledge", by=by, note=note, at=at)
+        """open → acknowledged. Raises NotFoundError (also when ``principal`` may not see the
+        alert's site) or ConflictError when not open."""
+        return self._lifecycle(
+            alert_id, "acknowledge", by=by, note=note, at=at, principal=principal
+        )
 
     def resolve(
-        self, alert_id: uuid.UUID, *, by: str, note: str = "", at: datetime | None = None
+        self,
+        alert_id: uuid.UUID,
+        *,
+        by: str,
+        note: str = "",
+        at: datetime | None = None,
+        principal: Principal | None = None,
     ) -> AlertChange:
-        """open/acknowledged → resolved by a person."""
-        return self._lifecycle(alert_id, "resolve", by=by, note=note, at=at)
+        """open/acknowledged → resolved by a person (ConflictError when already resolved)."""
+        return self._lifecycle(alert_id, "resolve", by=by, note=note, at=at, principal=principal)
 
     def check_silence(self, *, now: datetime | None = None) -> list[AlertChange]:
         """Raise (or clear) silence alerts for every known gateway and asset; call it on a

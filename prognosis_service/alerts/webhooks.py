@@ -31,7 +31,9 @@ from prognosis_service.alerts.models import DeliveryRow, SubscriptionRow
 from prognosis_service.alerts.rules import AlertChange, AlertKind, severity_rank
 from prognosis_service.alerts.signing import SecretSealer, new_secret
 from prognosis_service.alerts.ssrf import TargetPolicy, TargetRefusedError, check_target
-from prognosis_service.domain.errors import InvalidInputError, NotFoundError
+from prognosis_service.auth import Principal
+from prognosis_service.domain.errors import ForbiddenError, InvalidInputError, NotFoundError
+from prognosis_service.domain.pagination import decode_cursor, encode_cursor
 from prognosis_service.store.engine import insert_for
 from shared_schema.messages import Alert, AlertSeverity, Identifier
 
@@ -42,15 +44,18 @@ __all__ = [
     "EnqueueResult",
     "SubscriptionIn",
     "SubscriptionOut",
+    "check_may_subscribe",
     "cloudevent",
     "cloudevent_body",
     "create_subscription",
     "delete_subscription",
     "enqueue_deliveries",
     "get_subscription",
+    "insert_deliveries",
     "list_deliveries",
     "list_subscriptions",
     "matches",
+    "page_deliveries",
     "pause_subscription",
     "prune_deliveries",
     "queue_summary",
@@ -164,13 +169,34 @@ def list_deliveries(
     limit: int = 100,
 ) -> Sequence[DeliveryRow]:
     """A subscription's deliveries, newest first (for "why did my receiver not get it?")."""
+    return page_deliveries(session, subscription_id, states=states, limit=limit)[0]
+
+
+def page_deliveries(
+    session: Session,
+    subscription_id: uuid.UUID,
+    *,
+    states: Sequence[str] | None = None,
+    limit: int = 100,
+    cursor: str | None = None,
+) -> tuple[list[DeliveryRow], str | None]:
+    """Like :func:`list_deliveries`, one page at a time: returns the rows and the cursor of the
+    next (older) page, or None at the end."""
     if not 1 <= limit <= 1000:
         raise InvalidInputError(f"limit must be in [1, 1000], got {limit}")
     get_subscription(session, subscription_id)
     q = select(DeliveryRow).where(DeliveryRow.subscription_id == subscription_id)
     if states:
         q = q.where(DeliveryRow.state.in_(list(states)))
-    return session.scalars(q.order_by(DeliveryRow.delivery_id.desc()).limit(limit)).all()
+    if cursor:
+        (before,) = decode_cursor(cursor, 1)
+        if not isinstance(before, int):
+            raise InvalidInputError("cursor is not valid; pass next_cursor back unchanged")
+        q = q.where(DeliveryRow.delivery_id < before)
+    rows = list(session.scalars(q.order_by(DeliveryRow.delivery_id.desc()).limit(limit + 1)))
+    if len(rows) <= limit:
+        return rows, None
+    return rows[:limit], encode_cursor(rows[limit - 1].delivery_id)
 
 
 def queue_summary(session: Session) -> dict[uuid.UUID, dict[str, int]]:
@@ -257,15 +283,51 @@ def create_subscription(
     return row, secret
 
 
-def get_subscription(session: Session, subscription_id: uuid.UUID) -> SubscriptionRow:
+def _may_manage(principal: Principal, site: str | None) -> bool:
+    """A key limited to sites manages only subscriptions filtered to one of them."""
+    return principal.sites is None or (site is not None and site in principal.sites)
+
+
+def get_subscription(
+    session: Session, subscription_id: uuid.UUID, principal: Principal | None = None
+) -> SubscriptionRow:
+    """One subscription; with ``principal``, only when that key may see it (a key limited to
+    sites sees the subscriptions filtered to one of its sites).
+
+    Raises
+    ------
+    NotFoundError, ForbiddenError
+    """
     row = session.get(SubscriptionRow, subscription_id)
     if row is None:
         raise NotFoundError("subscription not found")
+    if principal is not None and not _may_manage(principal, row.site_id):
+        raise ForbiddenError("this key may not manage subscriptions beyond its sites")
     return row
 
 
-def list_subscriptions(session: Session) -> Sequence[SubscriptionRow]:
-    return session.scalars(select(SubscriptionRow).order_by(SubscriptionRow.created_at)).all()
+def list_subscriptions(
+    session: Session, principal: Principal | None = None
+) -> Sequence[SubscriptionRow]:
+    """Subscriptions, oldest first; a key limited to sites sees those filtered to its sites."""
+    q = select(SubscriptionRow)
+    if principal is not None and principal.sites is not None:
+        q = q.where(SubscriptionRow.site_id.in_(sorted(principal.sites)))
+    return session.scalars(q.order_by(SubscriptionRow.created_at)).all()
+
+
+def check_may_subscribe(spec: SubscriptionIn, principal: Principal) -> None:
+    """A key limited to sites may subscribe only to one of its sites' alerts.
+
+    Raises
+    ------
+    ForbiddenError
+    """
+    if not _may_manage(principal, spec.site):
+        raise ForbiddenError(
+            "a key limited to sites must set site to one of its sites, "
+            f"{sorted(principal.sites or ())}, got {spec.site!r}"
+        )
 
 
 def delete_subscription(session: Session, subscription_id: uuid.UUID) -> None:
@@ -350,32 +412,51 @@ def enqueue_deliveries(
     are stored together or not at all.
     """
     event = cloudevent(change, source=source)
-    body = cloudevent_body(event)
     subs = session.scalars(
         select(SubscriptionRow).where(SubscriptionRow.status.in_(LIVE_STATUSES))
     ).all()
+    created = insert_deliveries(
+        session,
+        event_id=change.event_id,
+        event_type=event["type"],
+        body=cloudevent_body(event),
+        subscription_ids=[s.subscription_id for s in subs if matches(s, change.alert)],
+        now=now,
+    )
+    return EnqueueResult(event, created)
+
+
+def insert_deliveries(
+    session: Session,
+    *,
+    event_id: uuid.UUID,
+    event_type: str,
+    body: str,
+    subscription_ids: Sequence[uuid.UUID],
+    now: datetime,
+) -> int:
+    """Write one pending row per subscription, due now; an existing (event, subscription) row
+    is left alone. Returns how many rows were written."""
+    if not subscription_ids:
+        return 0
     rows = [
         {
-            "event_id": change.event_id,
-            "subscription_id": s.subscription_id,
-            "event_type": event["type"],
+            "event_id": event_id,
+            "subscription_id": sid,
+            "event_type": event_type,
             "body": body,
             "state": "pending",
             "attempts": 0,
             "next_attempt_at": now,
             "created_at": now,
         }
-        for s in subs
-        if matches(s, change.alert)
+        for sid in subscription_ids
     ]
-    if not rows:
-        return EnqueueResult(event, 0)
-    insert = insert_for(session)
     stmt = (
-        insert(DeliveryRow)
+        insert_for(session)(DeliveryRow)
         .values(rows)
         .on_conflict_do_nothing(index_elements=["event_id", "subscription_id"])
         .returning(DeliveryRow.delivery_id)
     )
     # RETURNING counts the rows written (rowcount is not reliable for multi-row inserts)
-    return EnqueueResult(event, len(session.execute(stmt).all()))
+    return len(session.execute(stmt).all())

@@ -3,14 +3,18 @@
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Annotated
 
 from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session
 
+from prognosis_service.alerts.runtime import AlertWorkers
+from prognosis_service.alerts.service import AlertService
 from prognosis_service.api.problems import ProblemError
+from prognosis_service.api.ratelimit import TokenBuckets
+from prognosis_service.assessment.worker import AssessmentWorker
 from prognosis_service.auth import Principal, verify_token
 from prognosis_service.ingest.consumer import IngestService
 from prognosis_service.ingest.pipeline import Pipeline
@@ -38,6 +42,13 @@ class Runtime:
     store: Store
     pipeline: Pipeline
     ingest: IngestService | None = None
+    alerts: AlertService | None = None
+    alert_workers: AlertWorkers | None = None
+    assessor: AssessmentWorker | None = None
+    limiter: TokenBuckets = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        self.limiter = TokenBuckets(self.settings.rate_limit_per_s, self.settings.rate_limit_burst)
 
 
 def get_runtime(request: Request) -> Runtime:
@@ -74,12 +85,23 @@ def require_scope(scope: str) -> Callable[..., Principal]:
             raise ProblemError(
                 401, "the API key is not valid or has been revoked", headers=_CHALLENGE
             )
+        wait_s = runtime.limiter.take(principal.key_id)
+        if wait_s > 0:
+            raise ProblemError(
+                429,
+                f"this API key sent more than {runtime.settings.rate_limit_per_s:g} requests per "
+                f"second (burst {runtime.settings.rate_limit_burst}); retry later",
+                slug="rate-limited",
+                title="Too many requests",
+                headers={"Retry-After": TokenBuckets.retry_after(wait_s)},
+            )
         if not principal.has_scope(scope):
             raise ProblemError(
                 403, f"this API key lacks the {scope!r} scope", slug="insufficient-scope"
             )
         return principal
 
+    _check.required_scope = scope  # type: ignore[attr-defined]  # read by the route audit
     return _check
 
 

@@ -72,7 +72,58 @@ def problem_response(
     return JSONResponse(body, status_code=status, headers=headers, media_type=PROBLEM_JSON)
 
 
+PROBLEM_SCHEMA: dict[str, Any] = {
+    "title": "Problem",
+    "description": "RFC 9457 problem details; validation errors add `errors`.",
+    "type": "object",
+    "required": ["type", "title", "status", "detail"],
+    "properties": {
+        "type": {"type": "string"},
+        "title": {"type": "string"},
+        "status": {"type": "integer"},
+        "detail": {"type": "string"},
+        "instance": {"type": "string"},
+        "errors": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "properties": {"location": {"type": "string"}, "message": {"type": "string"}},
+            },
+        },
+    },
+}
+
+
+def _document_problems(app: FastAPI) -> None:
+    """Make the OpenAPI document say what the handlers below answer: every 4xx is a problem
+    document (FastAPI would describe its own 422 body, which this service never sends)."""
+    build = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is not None:
+            return app.openapi_schema
+        spec = build()
+        spec.setdefault("components", {}).setdefault("schemas", {})["Problem"] = PROBLEM_SCHEMA
+        problem = {
+            "description": "Problem details (RFC 9457)",
+            "content": {PROBLEM_JSON: {"schema": {"$ref": "#/components/schemas/Problem"}}},
+        }
+        for ops in spec.get("paths", {}).values():
+            for op in ops.values():
+                responses = op.setdefault("responses", {})
+                responses.pop("422", None)
+                responses.setdefault("4XX", problem)
+        for unused in ("HTTPValidationError", "ValidationError"):
+            spec["components"]["schemas"].pop(unused, None)
+        app.openapi_schema = spec
+        return spec
+
+    app.openapi = openapi  # type: ignore[method-assign]
+
+
 def install_problem_handlers(app: FastAPI) -> None:
+    _document_problems(app)
+
     @app.exception_handler(ProblemError)
     async def _problem(request: Request, exc: ProblemError) -> JSONResponse:
         return problem_response(

@@ -5,7 +5,7 @@ from __future__ import annotations
 import base64
 from typing import Annotated
 
-from fastapi import APIRouter, Query
+from fastapi import APIRouter, Path, Query
 
 from prognosis_service.api.deps import AdminKey, ReadSessionDep, RuntimeDep
 from prognosis_service.api.schemas import (
@@ -19,6 +19,8 @@ from prognosis_service.domain import quarantine as domain
 from prognosis_service.store.models import QuarantineRow
 
 router = APIRouter(prefix="/v1/quarantine", tags=["quarantine"])
+# the store's ids are 64-bit: a larger number could not name an entry (and must not reach SQL)
+EntryIdPath = Annotated[int, Path(ge=1, le=2**63 - 1)]
 
 
 def _out(row: QuarantineRow) -> QuarantineOut:
@@ -66,7 +68,7 @@ def list_quarantine(
 
 @router.get("/{entry_id}", response_model=QuarantineDetailOut)
 def get_quarantine_entry(
-    entry_id: int, session: ReadSessionDep, principal: AdminKey
+    entry_id: EntryIdPath, session: ReadSessionDep, principal: AdminKey
 ) -> QuarantineDetailOut:
     row = domain.get_entry(session, entry_id, principal)
     try:
@@ -90,7 +92,7 @@ def _readmit_out(results: list[tuple[int, str]]) -> ReadmitOut:
 
 
 @router.post("/{entry_id}/readmit", response_model=ReadmitOut)
-def readmit_entry(entry_id: int, runtime: RuntimeDep, principal: AdminKey) -> ReadmitOut:
+def readmit_entry(entry_id: EntryIdPath, runtime: RuntimeDep, principal: AdminKey) -> ReadmitOut:
     """Run one entry through ingest again; it stays (with its new reason) if still refused."""
     with runtime.store.write() as session:
         domain.get_entry(session, entry_id, principal)
@@ -114,7 +116,7 @@ def readmit_many(body: ReadmitIn, runtime: RuntimeDep, principal: AdminKey) -> R
 
 
 @router.delete("/{entry_id}", status_code=204)
-def purge_entry(entry_id: int, runtime: RuntimeDep, principal: AdminKey) -> None:
+def purge_entry(entry_id: EntryIdPath, runtime: RuntimeDep, principal: AdminKey) -> None:
     with runtime.store.write() as session:
         domain.purge(session, principal, ids=[entry_id])
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Generic, Literal, TypeVar
+from typing import Annotated, Generic, Literal, TypeVar
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -125,7 +125,9 @@ class QuarantineDetailOut(QuarantineOut):
 class ReadmitIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    ids: list[int] | None = Field(default=None, max_length=10_000)
+    ids: list[Annotated[int, Field(ge=1, le=2**63 - 1)]] | None = Field(
+        default=None, max_length=10_000
+    )
     reason: str | None = None
     asset_id: str | None = None
 

@@ -67,9 +67,12 @@ def register_asset(
         raise ForbiddenError(f"this key may not register assets at site {spec.site!r}")
     existing = session.get(Asset, spec.asset_id)
     if existing is not None and existing.site_id != spec.site:
-        raise ConflictError(
-            f"asset {spec.asset_id!r} is registered at site {existing.site_id!r}, not {spec.site!r}"
+        where = (
+            f"at site {existing.site_id!r}"
+            if principal is None or principal.may_see(existing.site_id)
+            else "at another site"  # a site this key may not see is not named
         )
+        raise ConflictError(f"asset {spec.asset_id!r} is registered {where}, not {spec.site!r}")
     now = datetime.now(UTC)
     session.execute(
         insert_for(session)(Site).values(site_id=spec.site, created_at=now).on_conflict_do_nothing()
@@ -130,10 +133,9 @@ def import_gateway_config(
 
 def get_asset(session: Session, asset_id: str, principal: Principal) -> Asset:
     asset = session.get(Asset, asset_id)
-    if asset is None:
+    # another site's asset answers exactly as a missing one: its existence must not leak
+    if asset is None or not principal.may_see(asset.site_id):
         raise NotFoundError("asset not found")
-    if not principal.may_see(asset.site_id):
-        raise ForbiddenError(f"this key may not read site {asset.site_id!r}")
     return asset
 
 

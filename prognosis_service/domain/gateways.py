@@ -34,10 +34,9 @@ def link_state(gw: Gateway, *, now: datetime, silent_after_s: float) -> str:
 
 def get_gateway(session: Session, gateway_id: str, principal: Principal) -> Gateway:
     gw = session.get(Gateway, gateway_id)
-    if gw is None:
+    # another site's gateway answers exactly as a missing one: its existence must not leak
+    if gw is None or not principal.may_see(gw.site_id):
         raise NotFoundError("gateway not found")
-    if not principal.may_see(gw.site_id):
-        raise ForbiddenError(f"this key may not read site {gw.site_id!r}")
     return gw
 
 

@@ -209,6 +209,9 @@ def test_service_env_example_is_refused_until_its_placeholders_are_replaced(
     monkeypatch.setenv(
         "WELLSPAN_MQTT_URL", active["WELLSPAN_MQTT_URL"].replace("changeme", "Xq7vR2mK9pL4")
     )
+    with pytest.raises(SettingsError, match="alerts_seal_key"):
+        load_settings()
+    monkeypatch.setenv("WELLSPAN_ALERTS_SEAL_KEY", "q2Y7dG0vT9wK3mB8xR5nL1cF6hJ4sA0eZ2uP7iO9yWk")
     assert load_settings().environment == "production"
 
 

@@ -113,9 +113,10 @@ def test_site_limited_keys_see_only_their_sites(service: Service) -> None:
     assert resp.status_code == 200
     assert [a["asset_id"] for a in resp.json()["items"]] == ["MAL-P1"]
     assert service.client.get("/v1/assets/MAL-P1", headers=mallee).status_code == 200
-    assert_problem(service.client.get("/v1/assets/GIB-P1", headers=mallee), 403)
+    # another site's asset answers as a missing one (404), so its existence does not leak
+    assert_problem(service.client.get("/v1/assets/GIB-P1", headers=mallee), 404)
     assert_problem(
-        service.client.get("/v1/assets/GIB-P1/indicators/de_accel.kurtosis", headers=mallee), 403
+        service.client.get("/v1/assets/GIB-P1/indicators/de_accel.kurtosis", headers=mallee), 404
     )
     assert_problem(service.client.get("/v1/assets?site=gibber", headers=mallee), 403)
     gibber_admin = service.auth(service.keys.gibber_admin)
@@ -300,7 +301,7 @@ def test_gateways_show_link_state(service: Service) -> None:
     assert [
         g["gateway_id"] for g in service.client.get("/v1/gateways", headers=mallee).json()["items"]
     ] == ["mallee-gw1"]
-    assert_problem(service.client.get("/v1/gateways/gibber-gw1", headers=mallee), 403)
+    assert_problem(service.client.get("/v1/gateways/gibber-gw1", headers=mallee), 404)
     assert_problem(service.client.get("/v1/gateways?state=asleep", headers=reader), 422)
 
 

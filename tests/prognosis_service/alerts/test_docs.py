@@ -78,3 +78,50 @@ class _Clock:
         from datetime import UTC, datetime
 
         return datetime.now(UTC)
+
+
+def test_docs_name_the_headers_settings_routes_and_defaults_of_the_code() -> None:
+    import re
+
+    from prognosis_service.alerts.delivery import ATTEMPT_HEADER, USER_AGENT
+    from prognosis_service.alerts.signing import (
+        DEFAULT_TOLERANCE_S,
+        EVENT_ID_HEADER,
+        SIGNATURE_HEADER,
+    )
+    from prognosis_service.alerts.webhooks import CONTENT_TYPE, DEFAULT_SOURCE, EVENT_TYPE_PREFIX
+    from prognosis_service.app import create_app
+    from prognosis_service.settings import Settings, load_settings
+    from tests.prognosis_service.alerts.conftest import DOCS
+
+    text = DOCS.read_text(encoding="utf-8")
+    for header in (EVENT_ID_HEADER, SIGNATURE_HEADER, ATTEMPT_HEADER):
+        assert f"\n{header}: " in text, header
+    assert f"User-Agent: {USER_AGENT}\n" in text
+    assert f"Content-Type: {CONTENT_TYPE}\n" in text
+    assert f'"source": "{DEFAULT_SOURCE}"' in text
+    assert f'"type": "{EVENT_TYPE_PREFIX}opened"' in text
+    assert DEFAULT_TOLERANCE_S == 300 and "within five minutes" in text
+    # the signature recipe is the one signing.sign computes
+    assert "{Wellspan-Event-Id}.{t}.{raw request body}" in text
+    assert "t=<Unix seconds>" in text and "v1=<hex>" in text
+    retry = RetryPolicy()
+    assert (retry.base_delay_s, retry.max_delay_s, retry.max_attempts) == (10.0, 3600.0, 12)
+    assert "(10 s, 20 s, 40 s … up to 1 h" in text and "After 12 failed attempts" in text
+    assert retry.time_budget_s == 2 * 86400 and "(or two days)" in text
+
+    settings = set(re.findall(r"`(webhook_\w+|alerts_\w+)", text))
+    assert settings and settings <= set(Settings.model_fields), settings - set(
+        Settings.model_fields
+    )
+    routes = {
+        (method, path)
+        for method, path in re.findall(r"`(GET|POST|DELETE|PUT) (/v1/[^`?\s]*)", text)
+    }
+    app = create_app(load_settings(database_url="sqlite://"))
+    served = {
+        (method.upper(), path.replace("{subscription_id}", "{id}"))
+        for path, ops in app.openapi()["paths"].items()
+        for method in ops
+    }
+    assert len(routes) == 7 and routes <= served, routes - served

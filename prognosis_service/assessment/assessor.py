@@ -1,0 +1,832 @@
+"""Assess one asset from the store: health points, degradation fit, time to failure, diagnosis.
+
+How an asset is assessed
+------------------------
+* **Life segments.** A segment starts at commissioning (the asset's first window) and again at
+  every repair, replacement or failure recorded for it. Windows before the current segment's start
+  are not assessed again.
+* **Order.** Windows are taken in (window start, message id) order, whatever order they arrived
+  in, so the result is a function of the stored messages and maintenance events only.
+* **Exclusions.** A window with a quality flag that makes a channel untrustworthy (clipped,
+  flatline, dropout, DC offset, drift, out of regime), or without an operating point, is kept as
+  an excluded health point with its reason; it is never scored nor learned from.
+* **Baseline.** The first ``baseline_windows`` usable windows of a segment are its healthy
+  baseline: operating regimes (speed × load bands), the health index per failure mode
+  (standardised against the same regime's baseline) and Hotelling's T² of the health-index
+  vector with its Phase II F-distribution control limit (``alpha``).
+* **Degradation.** Detected when at least ``detect_fraction`` of the last ``detect_windows``
+  scored windows are over the T² limit, or the leading failure mode's health index has risen to
+  ``onset_health_index``. Then the exponential (Gebraeel et al. 2005) and Wiener models are fitted
+  to the leading mode's health index, aggregated to one median per ``aggregate_h`` (the models
+  want one value per period, and this bounds the cost of a refit), and the one with the higher
+  evidence is kept (:func:`prognosis_service.prognosis.select_model`).
+* **Threshold.** The health index is 1 at the failure level of its severity rules; when at least
+  three failures of the same asset class are recorded, the median health index those units had
+  at failure is used instead.
+* **Fleet prior.** Learned (:class:`FleetPrior`) from the segments of the same asset class that
+  ended in a recorded failure; with fewer than three, the models' documented default priors.
+* **Late data.** A window older than the last one processed is scored against the segment's
+  baseline and the fit is redone; if it falls inside the baseline period, the segment is
+  reassessed from its stored windows.
+* **Lease.** An asset is assessed by one process at a time (a lease row with an expiry).
+
+Everything here is advisory: forecasts and diagnoses do not replace protective trips, and local
+codes and qualified personnel decide what is done on the machine.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import math
+import uuid
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from typing import Any
+
+import numpy as np
+from sqlalchemy import delete, func, select, update
+from sqlalchemy.orm import Session
+
+from prognosis_service.alerts.rules import (
+    AnomalyReading,
+    ChannelQualityReading,
+    DiagnosisReading,
+    Reading,
+    TimeToFailureReading,
+    ZoneReading,
+)
+from prognosis_service.assessment.baseline import (
+    BEARING_FAULTS,
+    FittedBaseline,
+    Score,
+    finite_or_none,
+    fit_baseline,
+    mode_of_fault,
+)
+from prognosis_service.assessment.models import (
+    AssetAssessment,
+    HealthPointRow,
+    MaintenanceEventRow,
+)
+from prognosis_service.assessment.windows import (
+    Window,
+    WindowKey,
+    after_key,
+    before_key,
+    load_windows,
+)
+from prognosis_service.diagnosis import NOT_SURE, FaultClassifier, diagnose
+from prognosis_service.health import NotEnoughDataError
+from prognosis_service.prognosis import (
+    ExponentialDegradation,
+    FleetPrior,
+    WienerDegradation,
+    select_model,
+)
+from prognosis_service.store.engine import Store, insert_for
+from prognosis_service.store.models import Asset, MessageRow
+from shared_schema import FaultMode, QualityFlag
+
+__all__ = [
+    "RENEWING_KINDS",
+    "AssessmentConfig",
+    "AssessmentOutcome",
+    "assess_asset",
+    "model_from_state",
+]
+
+log = logging.getLogger("wellspan.assessment")
+
+RENEWING_KINDS = frozenset({"repair", "replacement", "failure"})
+"""Maintenance kinds that end a life segment and start a new one."""
+
+_FLAGS = frozenset(f.value for f in QualityFlag)
+_EXP_OFFSET = -1.0  # the health index is clipped at -1, so exp(L) = HI + 1 stays positive
+_AMPLITUDE_UNITS = frozenset({"g", "mm/s", "kPa", "A"})
+
+
+@dataclass(frozen=True)
+class AssessmentConfig:
+    """Tuning of the assessor (defaults: common practice, no source; see the module docstring)."""
+
+    baseline_windows: int = 48
+    min_regime_windows: int = 12
+    n_speed_bands: int = 2
+    n_load_bands: int = 1
+    alpha: float = 0.01
+    detect_windows: int = 12
+    detect_fraction: float = 0.5
+    onset_health_index: float = 0.3
+    aggregate_h: float = 12.0
+    max_fit_points: int = 400
+    min_fleet_failures: int = 3
+    batch_windows: int = 2000
+    lease_s: float = 300.0
+    risk: float = 0.1
+    rule_weight: float = 0.3
+
+
+@dataclass
+class AssessmentOutcome:
+    """What one :func:`assess_asset` call did."""
+
+    asset_id: str
+    processed: int = 0
+    late: int = 0
+    reset: bool = False
+    leased: bool = True
+    backlog: bool = False
+    status: str | None = None
+    readings: list[Reading] = field(default_factory=list)
+
+
+def model_from_state(state: dict[str, Any]) -> ExponentialDegradation | WienerDegradation:
+    """Rebuild a fitted degradation model from its ``to_state()``."""
+    if state.get("kind") == "ExponentialDegradation":
+        return ExponentialDegradation.from_state(state)
+    return WienerDegradation.from_state(state)
+
+
+# ------------------------------------------------------------------------------------ leases
+
+
+def _acquire(store: Store, asset_id: str, owner: str, lease_s: float) -> bool:
+    now = datetime.now(UTC)
+    with store.write() as session:
+        session.execute(
+            insert_for(session)(AssetAssessment)
+            .values(
+                asset_id=asset_id,
+                status="no_baseline",
+                message="not assessed yet",
+                cursor_id=0,
+                backlog=False,
+                events_digest="",
+            )
+            .on_conflict_do_nothing()
+        )
+        got = session.execute(
+            update(AssetAssessment)
+            .where(
+                AssetAssessment.asset_id == asset_id,
+                (AssetAssessment.lease_owner.is_(None))
+                | (AssetAssessment.lease_until < now)
+                | (AssetAssessment.lease_owner == owner),
+            )
+            .values(lease_owner=owner, lease_until=now + timedelta(seconds=lease_s))
+        )
+        return bool(got.rowcount == 1)  # type: ignore[attr-defined]
+
+
+def _release(store: Store, asset_id: str, owner: str) -> None:
+    with store.write() as session:
+        session.execute(
+            update(AssetAssessment)
+            .where(AssetAssessment.asset_id == asset_id, AssetAssessment.lease_owner == owner)
+            .values(lease_owner=None, lease_until=None)
+        )
+
+
+# ---------------------------------------------------------------------------------- segments
+
+
+def _events(session: Session, asset_id: str) -> list[MaintenanceEventRow]:
+    return list(
+        session.scalars(
+            select(MaintenanceEventRow)
+            .where(MaintenanceEventRow.asset_id == asset_id)
+            .order_by(MaintenanceEventRow.at, MaintenanceEventRow.event_id)
+        )
+    )
+
+
+def _digest(events: Sequence[MaintenanceEventRow]) -> str:
+    h = hashlib.sha256()
+    for e in events:
+        h.update(f"{e.event_id}|{e.at.isoformat()}|{e.kind}|{e.failure_mode}\n".encode())
+    return h.hexdigest()
+
+
+def _segment_start(
+    session: Session, asset_id: str, events: Sequence[MaintenanceEventRow]
+) -> datetime | None:
+    renewals = [e.at for e in events if e.kind in RENEWING_KINDS]
+    if renewals:
+        return max(renewals)
+    first: datetime | None = session.scalar(
+        select(func.min(MessageRow.window_start)).where(MessageRow.asset_id == asset_id)
+    )
+    return first
+
+
+# ---------------------------------------------------------------------------------- assessing
+
+
+class _Run:
+    """One assess call's working state inside its write transaction."""
+
+    def __init__(
+        self,
+        session: Session,
+        asset: Asset,
+        row: AssetAssessment,
+        config: AssessmentConfig,
+        classifier: FaultClassifier | None,
+        outcome: AssessmentOutcome,
+    ) -> None:
+        self.session = session
+        self.asset = asset
+        self.row = row
+        self.config = config
+        self.classifier = classifier
+        self.outcome = outcome
+        state = dict(row.state or {})
+        self.state = state
+        self.baseline = (
+            FittedBaseline.from_state(state["baseline"]) if state.get("baseline") else None
+        )
+
+    # -- state helpers ----------------------------------------------------------------------
+    @property
+    def last_key(self) -> WindowKey | None:
+        if self.row.last_window_start is None or self.row.last_message_id is None:
+            return None
+        return (self.row.last_window_start, self.row.last_message_id)
+
+    @property
+    def baseline_end(self) -> WindowKey | None:
+        end = self.state.get("baseline_end")
+        if not end:
+            return None
+        return (datetime.fromisoformat(end[0]), uuid.UUID(end[1]))
+
+    def reset_segment(self, start: datetime | None) -> None:
+        seg = self.row.segment_start
+        if seg is not None:
+            self.session.execute(
+                delete(HealthPointRow).where(
+                    HealthPointRow.asset_id == self.asset.asset_id,
+                    HealthPointRow.window_start >= (seg if start is None else start),
+                )
+            )
+        self.row.segment_start = start
+        self.row.last_window_start = None
+        self.row.last_message_id = None
+        self.state = {"learning": 0}
+        self.baseline = None
+        self.outcome.reset = True
+
+    # -- points -----------------------------------------------------------------------------
+    def _add_point(self, w: Window, score: Score | None, reason: str | None) -> None:
+        assert self.row.segment_start is not None
+        self.session.add(
+            HealthPointRow(
+                asset_id=self.asset.asset_id,
+                message_row_id=w.row_id,
+                message_id=w.message_id,
+                window_start=w.window_start,
+                segment_start=self.row.segment_start,
+                regime=None if score is None else score.regime,
+                anomaly_score=None if score is None else score.anomaly_score,
+                control_limit=None if score is None else score.control_limit,
+                health=None if score is None else score.health,
+                excluded=reason is not None,
+                excluded_reason=reason,
+            )
+        )
+
+    def _window_readings(self, w: Window, score: Score | None) -> None:
+        a = self.asset
+        base: dict[str, Any] = {
+            "site": a.site_id,
+            "at": w.window_start,
+            "asset_id": a.asset_id,
+            "asset_class": a.asset_class,
+        }
+        readings = self.outcome.readings
+        for channel, entry in sorted((w.quality or {}).items()):
+            flags = frozenset(QualityFlag(f) for f in entry.get("flags", ()) if f in _FLAGS)
+            readings.append(ChannelQualityReading(channel=channel, flags=flags, **base))
+        bad = w.bad_channels
+        for name, value in zip(w.names, w.values, strict=True):
+            channel = name.split(".", 1)[0]
+            if name.endswith(".velocity_rms") and np.isfinite(value) and channel not in bad:
+                readings.append(
+                    ZoneReading(velocity_rms_mm_s=float(value), channel=channel, **base)
+                )
+        if score is not None and score.anomaly_score is not None and score.control_limit:
+            readings.append(
+                AnomalyReading(
+                    score=score.anomaly_score,
+                    control_limit=score.control_limit,
+                    **base,
+                )
+            )
+
+    def score_and_store(self, windows: Sequence[Window]) -> None:
+        assert self.baseline is not None
+        usable = [w for w in windows if w.excluded_reason is None]
+        scores = dict(zip((w.key for w in usable), self.baseline.score(usable), strict=True))
+        for w in windows:
+            reason = w.excluded_reason
+            score = scores.get(w.key)
+            if reason is None and score is not None:
+                reason = score.reason
+            self._add_point(w, score if reason is None else None, reason)
+            self._window_readings(w, score if reason is None else None)
+
+    # -- the baseline -----------------------------------------------------------------------
+    def learn(self, windows: Sequence[Window]) -> list[Window]:
+        """Count usable windows towards the baseline; fit it once there are enough.
+
+        Returns the windows after the baseline that still need scoring.
+        """
+        cfg = self.config
+        rest: list[Window] = []
+        for i, w in enumerate(windows):
+            if self.baseline is not None:
+                rest = list(windows[i:])
+                break
+            reason = w.excluded_reason
+            if reason is not None:
+                self._add_point(w, None, reason)
+                self._window_readings(w, None)
+                continue
+            self.state["learning"] = int(self.state.get("learning", 0)) + 1
+            if self.state["learning"] >= int(self.state.get("target", cfg.baseline_windows)):
+                self._fit_baseline(w)
+        return rest
+
+    def _fit_baseline(self, last: Window) -> None:
+        cfg = self.config
+        seg = self.row.segment_start
+        assert seg is not None
+        conds = [MessageRow.window_start >= seg, ~after_key(last.key)]
+        rows = [
+            w
+            for w in load_windows(self.session, self.asset.asset_id, *conds)
+            if w.excluded_reason is None
+        ]
+        target = int(self.state.get("target", cfg.baseline_windows))
+        rows = rows[:target]
+        try:
+            fitted = fit_baseline(
+                rows,
+                n_speed_bands=cfg.n_speed_bands,
+                n_load_bands=cfg.n_load_bands,
+                min_regime_windows=cfg.min_regime_windows,
+                alpha=cfg.alpha,
+            )
+        except (NotEnoughDataError, ValueError) as exc:
+            # Not enough windows in one regime yet: keep learning with a longer baseline.
+            self.state["baseline_note"] = str(exc)
+            self.state["target"] = target + max(1, cfg.baseline_windows // 4)
+            return
+        self.baseline = fitted
+        self.state["baseline"] = fitted.to_state()
+        self.state["baseline_end"] = [last.window_start.isoformat(), last.message_id.hex]
+        self.score_and_store(rows)
+
+    # -- processing ---------------------------------------------------------------------------
+    def process(self, snapshot_id: int) -> None:
+        cfg = self.config
+        aid = self.asset.asset_id
+        seg = self.row.segment_start
+        if seg is None:
+            return
+        last = self.last_key
+        if last is not None:
+            late = load_windows(
+                self.session,
+                aid,
+                MessageRow.id > self.row.cursor_id,
+                MessageRow.id <= snapshot_id,
+                MessageRow.window_start >= seg,
+                before_key(last),
+                limit=cfg.batch_windows,
+            )
+            if late:
+                end = self.baseline_end
+                if end is None or min(w.key for w in late) <= end:
+                    self.reset_segment(seg)
+                else:
+                    self.score_and_store(late)
+                    self.outcome.late += len(late)
+        conds: list[Any] = [MessageRow.window_start >= seg, MessageRow.id <= snapshot_id]
+        if self.last_key is not None:
+            conds.append(after_key(self.last_key))
+        forward = load_windows(self.session, aid, *conds, limit=cfg.batch_windows)
+        rest = self.learn(forward)
+        if rest:
+            self.score_and_store(rest)
+        if forward:
+            self.row.last_window_start = forward[-1].window_start
+            self.row.last_message_id = forward[-1].message_id
+        self.outcome.processed += len(forward)
+        self.outcome.backlog = len(forward) >= cfg.batch_windows
+        self.row.backlog = self.outcome.backlog
+        self.row.cursor_id = snapshot_id
+        self.row.as_of = self.row.last_window_start
+
+
+# ---------------------------------------------------------------------------------- the fit
+
+
+def _aggregate(
+    points: Sequence[tuple[datetime, float]], start: datetime, width_h: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Median per bucket of ``width_h`` hours since ``start``; t = age (h) of its last window."""
+    buckets: dict[int, list[tuple[float, float]]] = {}
+    for ws, v in points:
+        age = (ws - start).total_seconds() / 3600.0
+        buckets.setdefault(int(age // width_h), []).append((age, v))
+    t, y = [], []
+    for k in sorted(buckets):
+        ages, vals = zip(*buckets[k], strict=True)
+        t.append(max(max(ages), 1e-3))
+        y.append(float(np.median(vals)))
+    return np.asarray(t), np.asarray(y)
+
+
+def _bucket_width(
+    points: Sequence[tuple[datetime, float]], start: datetime, cfg: AssessmentConfig
+) -> float:
+    if not points:
+        return cfg.aggregate_h
+    span_h = (points[-1][0] - start).total_seconds() / 3600.0
+    return max(cfg.aggregate_h, span_h / cfg.max_fit_points)
+
+
+def _segment_points(
+    session: Session, asset_id: str, lo: datetime | None, hi: datetime | None
+) -> list[tuple[datetime, float | None, float | None, dict[str, float]]]:
+    stmt = select(
+        HealthPointRow.window_start,
+        HealthPointRow.anomaly_score,
+        HealthPointRow.control_limit,
+        HealthPointRow.health,
+    ).where(
+        HealthPointRow.asset_id == asset_id,
+        HealthPointRow.excluded.is_(False),
+        HealthPointRow.health.is_not(None),
+    )
+    if lo is not None:
+        stmt = stmt.where(HealthPointRow.window_start >= lo)
+    if hi is not None:
+        stmt = stmt.where(HealthPointRow.window_start < hi)
+    stmt = stmt.order_by(HealthPointRow.window_start, HealthPointRow.message_id)
+    return [(r[0], r[1], r[2], r[3]) for r in session.execute(stmt)]
+
+
+def _fleet(
+    session: Session, asset: Asset, cfg: AssessmentConfig
+) -> tuple[list[tuple[np.ndarray, np.ndarray]], list[float]]:
+    """Run-to-failure histories of the asset class: (t, health index) and the value at failure."""
+    failures = session.execute(
+        select(
+            MaintenanceEventRow.asset_id, MaintenanceEventRow.at, MaintenanceEventRow.failure_mode
+        )
+        .join(Asset, Asset.asset_id == MaintenanceEventRow.asset_id)
+        .where(Asset.asset_class == asset.asset_class, MaintenanceEventRow.kind == "failure")
+        .order_by(MaintenanceEventRow.at.desc(), MaintenanceEventRow.event_id)
+        .limit(50)
+    ).all()
+    histories, finals = [], []
+    for asset_id, at, mode in failures:
+        earlier = session.scalar(
+            select(func.max(MaintenanceEventRow.at)).where(
+                MaintenanceEventRow.asset_id == asset_id,
+                MaintenanceEventRow.kind.in_(sorted(RENEWING_KINDS)),
+                MaintenanceEventRow.at < at,
+            )
+        )
+        pts = _segment_points(session, asset_id, earlier, at)
+        if not pts:
+            continue
+        start = session.scalar(
+            select(HealthPointRow.segment_start)
+            .where(HealthPointRow.asset_id == asset_id, HealthPointRow.window_start < at)
+            .order_by(HealthPointRow.window_start.desc())
+            .limit(1)
+        )
+        if start is None:
+            continue
+        modes = pts[-1][3].keys()
+        use = mode_of_fault(mode)
+        if use not in modes:
+            use = max(sorted(modes), key=lambda m: pts[-1][3][m])
+        series = [(p[0], p[3][use]) for p in pts if p[0] >= start]
+        t, y = _aggregate(series, start, _bucket_width(series, start, cfg))
+        tf, yf, _ = _degradation_series(t, y, cfg.onset_health_index / 2.0)
+        if tf.size >= 3:
+            histories.append((tf, yf))
+            finals.append(float(y[-1]))
+    return histories, finals
+
+
+def _degradation_series(
+    t: np.ndarray, y: np.ndarray, level: float
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """The buckets of the final run at or above ``level``, timed from the bucket before it.
+
+    Fitting starts when degradation is detected: the degradation models describe a signal that
+    leaves its healthy level (0) at their time origin, so the origin is the last healthy bucket
+    before the rise, not the start of the life segment. Returns ``(t - t0, y, t0)``.
+    """
+    i = y.size
+    while i > 0 and y[i - 1] >= level:
+        i -= 1
+    if i == y.size:
+        return np.empty(0), np.empty(0), 0.0
+    t0 = float(t[i - 1]) if i > 0 else 0.0
+    return t[i:] - t0, y[i:], t0
+
+
+def _leading_mode(
+    points: Sequence[tuple[Any, Any, Any, dict[str, float]]], diagnosis: dict[str, Any] | None
+) -> str:
+    """The diagnosed fault's health-index mode, else the mode highest over the recent windows."""
+    modes = points[-1][3].keys()
+    if diagnosis is not None:
+        named = mode_of_fault(diagnosis["fault"])
+        if named in modes:
+            return named
+    recent = points[-24:]
+    return max(sorted(modes), key=lambda m: float(np.median([p[3][m] for p in recent])))
+
+
+def _indicator_table(
+    w: Window, baseline: FittedBaseline, regime: int | None
+) -> list[dict[str, Any]]:
+    b = baseline.baseline_for(regime)
+    med, _ = b.aligned(w.names)
+    out = []
+    for name, unit, value, m in zip(w.names, w.units, w.values, med, strict=True):
+        if not np.isfinite(value):
+            continue
+        db = None
+        if np.isfinite(m):
+            if unit == "dB":
+                db = float(value - m)
+            elif unit in _AMPLITUDE_UNITS and value > 0 and m > 0:
+                db = float(20.0 * math.log10(value / m))
+        out.append(
+            {
+                "name": name,
+                "unit": unit,
+                "value": float(value),
+                "baseline": finite_or_none(float(m)),
+                "db_over_baseline": db,
+            }
+        )
+    return out
+
+
+def _diagnosis(run: _Run) -> dict[str, Any] | None:
+    """Diagnose the latest usable window against its regime's baseline."""
+    baseline = run.baseline
+    seg = run.row.segment_start
+    if baseline is None or seg is None or run.last_key is None:
+        return None
+    recent = load_windows(
+        run.session,
+        run.asset.asset_id,
+        MessageRow.window_start >= seg,
+        ~after_key(run.last_key),
+        MessageRow.window_start >= run.last_key[0] - timedelta(days=2),
+    )
+    usable = [w for w in recent if w.excluded_reason is None]
+    if not usable:
+        return None
+    w = usable[-1]
+    regime = baseline.score([w])[0].regime
+    d = diagnose(
+        w.by_name(),
+        baseline.baseline_for(regime),
+        classifier=run.classifier,
+        shaft_speed_hz=w.shaft_speed_hz,
+        rule_weight=run.config.rule_weight,
+    )
+    return {
+        "at": w.window_start.isoformat(),
+        "fault": d.fault,
+        "confidence": d.confidence,
+        "probabilities": d.probabilities,
+        "evidence": d.sentences,
+        "summary": d.summary,
+        "indicators": _indicator_table(w, baseline, regime),
+    }
+
+
+def _summarise(run: _Run, events: Sequence[MaintenanceEventRow]) -> dict[str, Any]:
+    cfg = run.config
+    asset = run.asset
+    seg = run.row.segment_start
+    result: dict[str, Any] = {
+        "failure_mode": None,
+        "health_index": None,
+        "failure_threshold": None,
+        "anomaly": None,
+        "model": None,
+        "model_state": None,
+        "diagnosis": None,
+        "velocity_rms_mm_s": None,
+        "latest_maintenance_event_at": max((e.at for e in events), default=None),
+    }
+    if result["latest_maintenance_event_at"] is not None:
+        result["latest_maintenance_event_at"] = result["latest_maintenance_event_at"].isoformat()
+    if run.baseline is None or seg is None:
+        learned = int(run.state.get("learning", 0))
+        target = int(run.state.get("target", cfg.baseline_windows))
+        run.row.status = "no_baseline"
+        run.row.message = (
+            f"not enough data yet: {learned} healthy windows of the {target} a baseline needs"
+        )
+        note = run.state.get("baseline_note")
+        if note:
+            run.row.message += f" ({note})"
+        return result
+    points = _segment_points(run.session, asset.asset_id, seg, None)
+    if not points:
+        run.row.status = "not_enough_data"
+        run.row.message = "no usable windows scored in this life segment yet"
+        return result
+    last = points[-1]
+    result["anomaly"] = {
+        "score": last[1],
+        "control_limit": last[2],
+        "over_limit": bool(last[1] is not None and last[2] is not None and last[1] > last[2]),
+    }
+    recent = [p for p in points[-cfg.detect_windows :] if p[1] is not None and p[2] is not None]
+    over = float(np.mean([p[1] > p[2] for p in recent])) if recent else 0.0  # type: ignore[operator]
+    result["diagnosis"] = _diagnosis(run)
+    mode = _leading_mode(points, result["diagnosis"])
+    series = [(p[0], p[3][mode]) for p in points]
+    width = _bucket_width(series, seg, cfg)
+    t, y = _aggregate(series, seg, width)
+    fault = (result["diagnosis"] or {}).get("fault")
+    result["failure_mode"] = fault if mode == "bearing" and fault in BEARING_FAULTS else mode
+    result["health_index"] = float(y[-1])
+    histories, finals = _fleet(run.session, asset, cfg)
+    threshold = 1.0
+    threshold_source = "severity class (health index 1)"
+    if len(finals) >= cfg.min_fleet_failures:
+        threshold = max(float(np.median(finals)), 0.2)
+        threshold_source = f"median at {len(finals)} recorded failures of the asset class"
+    result["failure_threshold"] = threshold
+    result["threshold_source"] = threshold_source
+    detected = over >= cfg.detect_fraction or y[-1] >= cfg.onset_health_index
+    if not detected:
+        run.row.status = "no_degradation"
+        run.row.message = (
+            f"no degradation detected: {over:.0%} of the last {len(recent)} windows over the "
+            f"anomaly limit, health index {y[-1]:.2f} ({result['failure_mode']})"
+        )
+        return result
+    t_fit, y_fit, t0 = _degradation_series(t, y, cfg.onset_health_index / 2.0)
+    if t_fit.size == 0:
+        run.row.status = "not_enough_data"
+        run.row.message = (
+            "sustained anomaly but the health index has not risen yet: no degradation trend to fit"
+        )
+        return result
+    result["degradation_start"] = (seg + timedelta(hours=t0)).isoformat()
+    y_exp = np.maximum(y_fit, _EXP_OFFSET + 1e-3)
+    prior = FleetPrior(offset=_EXP_OFFSET, initial_level=0.0, min_units=cfg.min_fleet_failures)
+    prior.fit([(ht, np.maximum(hy, _EXP_OFFSET + 1e-3)) for ht, hy in histories])
+    candidates = [
+        ExponentialDegradation(threshold=threshold, **prior.exponential_params()),
+        WienerDegradation(threshold=threshold, **prior.wiener_params()),
+    ]
+    try:
+        model, comparison = select_model(candidates, t_fit, y_exp)
+    except NotEnoughDataError as exc:
+        run.row.status = (
+            "no_degradation" if exc.reason == "no_degradation_detected" else "not_enough_data"
+        )
+        run.row.message = f"degradation suspected but no forecast yet: {exc.detail}"
+        return result
+    except ValueError as exc:  # e.g. the signal already at or past the threshold everywhere
+        run.row.status = "not_enough_data"
+        run.row.message = f"no forecast: {exc}"
+        return result
+    chosen = next(c for c in comparison.candidates if c.label == comparison.chosen)
+    result["model"] = {
+        "name": type(model).__name__,
+        "fit_quality": {
+            "log_evidence": chosen.log_evidence,
+            "model_probability": chosen.weight,
+            "bic": chosen.bic,
+            "trend_z": float(model.trend_z_),
+            "sigma2_per_h": float(model.sigma2_),
+        },
+        "n_points": int(model.n_points_),
+        "life_segment_start": seg.isoformat(),
+        "fitted_at": datetime.now(UTC).isoformat(),
+        "prior": prior.source_,
+        "bucket_h": width,
+        "comparison": comparison.to_dict(),
+    }
+    result["model_state"] = model.to_state()
+    result["quantiles_h"] = [
+        finite_or_none(float(q)) for q in model.time_to_failure_quantiles((0.1, 0.5, 0.9))
+    ]
+    result["last_time_h"] = t0 + float(model.last_time_)
+    run.row.status = "forecast"
+    run.row.message = (
+        f"degradation ({result['failure_mode']}) detected; {type(model).__name__} chosen by "
+        f"evidence from {model.n_points_} points"
+    )
+    return result
+
+
+def _final_readings(run: _Run, result: dict[str, Any]) -> None:
+    a = run.asset
+    at = run.row.last_window_start
+    if at is None:
+        return
+    base: dict[str, Any] = {"site": a.site_id, "at": at, "asset_id": a.asset_id}
+    base["asset_class"] = a.asset_class
+    risk = run.config.risk
+    ttf: float | None = None
+    if result.get("model_state"):
+        h = model_from_state(result["model_state"]).latest_maintenance_time(risk)
+        ttf = h * 3600.0 if math.isfinite(h) else None
+    run.outcome.readings.append(TimeToFailureReading(risk=risk, time_to_failure_s=ttf, **base))
+    diag = result.get("diagnosis")
+    if diag and diag["fault"] != NOT_SURE and diag["fault"] in {f.value for f in FaultMode}:
+        run.outcome.readings.append(
+            DiagnosisReading(
+                fault_mode=FaultMode(diag["fault"]), confidence=diag["confidence"], **base
+            )
+        )
+
+
+def assess_asset(
+    store: Store,
+    asset_id: str,
+    *,
+    config: AssessmentConfig | None = None,
+    classifier: FaultClassifier | None = None,
+    owner: str | None = None,
+) -> AssessmentOutcome:
+    """Assess one asset's new windows (at most ``config.batch_windows``) and refit its forecast.
+
+    Returns an outcome with ``leased=False`` (and nothing done) when another process holds the
+    asset's lease, and one with ``status=None`` for an asset id that is not registered. The
+    outcome's ``readings`` are the alert readings of every processed window (anomaly, zone,
+    channel quality) and of the asset (time to failure at ``config.risk``, diagnosis).
+    """
+    cfg = config or AssessmentConfig()
+    me = owner or f"pid-{uuid.uuid4().hex[:12]}"
+    outcome = AssessmentOutcome(asset_id=asset_id)
+    with store.read() as session:
+        if session.get(Asset, asset_id) is None:
+            return outcome
+    if not _acquire(store, asset_id, me, cfg.lease_s):
+        outcome.leased = False
+        return outcome
+    try:
+        with store.write() as session:
+            asset = session.get(Asset, asset_id)
+            row = session.get(AssetAssessment, asset_id)
+            assert asset is not None and row is not None
+            snapshot = int(
+                session.scalar(
+                    select(func.coalesce(func.max(MessageRow.id), 0)).where(
+                        MessageRow.asset_id == asset_id
+                    )
+                )
+                or 0
+            )
+            events = _events(session, asset_id)
+            digest = _digest(events)
+            run = _Run(session, asset, row, cfg, classifier, outcome)
+            start = _segment_start(session, asset_id, events)
+            if start != row.segment_start:
+                run.reset_segment(start)
+            changed = digest != row.events_digest
+            row.events_digest = digest
+            before = (row.cursor_id, row.last_window_start, row.last_message_id)
+            run.process(snapshot)
+            after = (row.cursor_id, row.last_window_start, row.last_message_id)
+            if (
+                outcome.processed
+                or outcome.late
+                or outcome.reset
+                or changed
+                or before != after
+                or row.result is None
+            ):
+                session.flush()
+                result = _summarise(run, events)
+                row.result = result
+                _final_readings(run, result)
+            row.state = run.state
+            row.updated_at = datetime.now(UTC)
+            outcome.status = row.status
+        return outcome
+    finally:
+        _release(store, asset_id, me)
