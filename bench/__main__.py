@@ -1,4 +1,4 @@
-"""Run the benchmarks and write the report.
+"""Run the benchmarks and write the report (``wellspan bench`` runs the same).
 
     .venv/bin/python -m bench                       # every registered benchmark, full sizes
     .venv/bin/python -m bench forecast anomaly      # only these
@@ -38,11 +38,8 @@ class _UsageError(Exception):
     pass
 
 
-def _parser(names: Sequence[str]) -> argparse.ArgumentParser:
-    ap = argparse.ArgumentParser(
-        prog="python -m bench",
-        description="Run wellspan's benchmarks and write docs/BENCHMARKS.md.",
-    )
+def add_arguments(ap: argparse.ArgumentParser, names: Sequence[str]) -> None:
+    """The options of ``python -m bench`` and ``wellspan bench`` (one definition for both)."""
     ap.add_argument(
         "names", nargs="*", metavar="NAME", help=f"benchmarks to run: {', '.join(names)}"
     )
@@ -54,6 +51,14 @@ def _parser(names: Sequence[str]) -> argparse.ArgumentParser:
     ap.add_argument("--strict", action="store_true", help="exit 1 when a figure misses its target")
     ap.add_argument("--list", action="store_true", help="list the benchmarks and exit")
     ap.add_argument("--no-progress", action="store_true", help="no progress display on stderr")
+
+
+def _parser(names: Sequence[str]) -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(
+        prog="python -m bench",
+        description="Run wellspan's benchmarks and write docs/BENCHMARKS.md.",
+    )
+    add_arguments(ap, names)
     return ap
 
 
@@ -144,6 +149,19 @@ def main(
         args = ap.parse_args(args_list)
     except SystemExit as exc:  # argparse already printed one line naming the problem
         return int(exc.code or 0)
+    return run_args(args, registry=reg, command=_python_command(args_list))
+
+
+def run_args(
+    args: argparse.Namespace,
+    *,
+    registry: Mapping[str, Benchmark] | None = None,
+    command: str,
+    prog: str = "python -m bench",
+) -> int:
+    """Run what parsed ``args`` (see :func:`add_arguments`) ask for; ``command`` is the line that
+    reproduces the run, written into the report."""
+    reg = REGISTRY if registry is None else registry
     if args.list:
         for b in reg.values():
             print(f"{b.name:<10} {b.title}")
@@ -156,7 +174,7 @@ def main(
         if not out.parent.exists():
             raise _UsageError(f"--out: the directory {out.parent} does not exist")
     except _UsageError as exc:
-        print(f"python -m bench: {exc}", file=sys.stderr)
+        print(f"{prog}: {exc}", file=sys.stderr)
         return 2
     progress = not args.no_progress and sys.stderr.isatty()
     load_before = load_average()
@@ -170,11 +188,10 @@ def main(
     for r in results:
         if r.traceback:
             print(f"bench: {r.benchmark.name} failed:\n{r.traceback}", file=sys.stderr)
-    command = _python_command(args_list)
     try:
         out.write_text(render_markdown(results, machine, command=command), encoding="utf-8")
     except OSError as exc:
-        print(f"python -m bench: cannot write --out {out}: {exc.strerror}", file=sys.stderr)
+        print(f"{prog}: cannot write --out {out}: {exc.strerror}", file=sys.stderr)
         return 2
     if args.json:
         print(

@@ -1,6 +1,7 @@
 """Benchmark of the gateway agent: memory, CPU share, backlog drain.
 
-Run: ``.venv/bin/python -m bench.bench_agent`` (needs /usr/sbin/mosquitto). Prints a table.
+Run: ``wellspan bench agent`` (the report) or ``.venv/bin/python -m bench.bench_agent`` (a table);
+both need /usr/sbin/mosquitto.
 
 * resident memory of an agent process serving the twelve Saltbush Flats pumps (simulator source,
   real extractor, outbox, MQTT uplink to a local broker), peak (VmHWM) after ``--rss-windows``
@@ -29,6 +30,8 @@ from collections.abc import Iterable
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
+
+from bench.harness import Figure, Report, Target
 
 ROOT = Path(__file__).resolve().parents[1]
 START = datetime(2026, 3, 1, tzinfo=UTC)
@@ -133,7 +136,7 @@ def _child(kind: str, url: str, windows: int) -> dict[str, float]:
     return dict(json.loads(out.stdout.strip().splitlines()[-1]))
 
 
-def fill_outbox(path: Path, *, days: int = 7, assets: int = 12) -> int:
+def fill_outbox(path: Path, *, days: float = 7, assets: int = 12) -> int:
     """Fill an outbox as 'days' of outage would: one realistic frame per asset per minute."""
     from edge_agent.extractor import Extractor
     from edge_agent.outbox import NewMessage, Outbox, Priority
@@ -150,7 +153,7 @@ def fill_outbox(path: Path, *, days: int = 7, assets: int = 12) -> int:
         templates[a] = (msg, ex.layout)
     box = Outbox(path, gateway_id="gw-bench", site="saltbush-flats", max_bytes=500_000_000)
     seq = 0
-    for minute in range(days * 1440):
+    for minute in range(round(days * 1440)):
         batch = []
         t = START + timedelta(minutes=minute)
         for a in ids:
@@ -165,7 +168,7 @@ def fill_outbox(path: Path, *, days: int = 7, assets: int = 12) -> int:
     return seq
 
 
-def drain(url: str, host: str, port: int, tmp: Path) -> dict[str, float]:
+def drain(url: str, host: str, port: int, tmp: Path, *, days: float = 7) -> dict[str, float]:
     from edge_agent.agent import Agent
     from edge_agent.outbox import Outbox
 
@@ -173,7 +176,7 @@ def drain(url: str, host: str, port: int, tmp: Path) -> dict[str, float]:
     from tests.edge_agent.helpers import Receiver
 
     t0 = time.monotonic()
-    total = fill_outbox(tmp / "outbox.sqlite")
+    total = fill_outbox(tmp / "outbox.sqlite", days=days)
     fill_s = time.monotonic() - t0
     box = Outbox(tmp / "outbox.sqlite", gateway_id="gw-bench", site="saltbush-flats",
                  max_bytes=500_000_000)  # fmt: skip
@@ -209,6 +212,93 @@ def drain(url: str, host: str, port: int, tmp: Path) -> dict[str, float]:
         "received_frames": frames,
         "mqtt_messages": mqtt_messages,
     }
+
+
+FULL_BACKLOG = 7 * 12 * 1440  # messages after a 7-day outage of 12 assets at 1 window/min
+
+
+def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
+    """The gateway agent's figures for the benchmark report (a private Mosquitto)."""
+    from tests.brokers import MosquittoBroker
+
+    rss_windows, cpu_windows, days = (24, 48, 0.05) if quick else (240, 600, 7.0)
+
+    def progress(done: float, what: str) -> None:
+        if report is not None:
+            report(done, 3.0, what)
+
+    with tempfile.TemporaryDirectory() as d:
+        tmp = Path(d)
+        broker = MosquittoBroker(tmp / "mosquitto")
+        broker.start()
+        try:
+            progress(0.0, f"resident memory over {rss_windows} window sets")
+            rss = _child("rss", broker.url, rss_windows)
+            progress(1.0, f"CPU over {cpu_windows} window sets")
+            cpu = _child("cpu", broker.url, cpu_windows)
+            progress(2.0, f"backlog drain ({days:g} days x 12 assets)")
+            (tmp / "drain").mkdir()
+            dr = drain(broker.url, broker.host, broker.port, tmp / "drain", days=days)
+            progress(3.0, "done")
+        finally:
+            broker.stop()
+    share = 100.0 * 12 * cpu["cpu_s_per_window"] / 60.0
+    rate = dr["messages"] / dr["drain_s"]
+    scaled = (
+        ""
+        if dr["messages"] == FULL_BACKLOG
+        else (f"; projected linearly from a backlog of {dr['messages']:,.0f} messages (--quick)")
+    )
+    return [
+        Figure(
+            name="resident memory, 12 assets (peak)",
+            value=rss["rss_peak_mb"],
+            unit="MB",
+            target=Target(text="≤ 150 MB", op="<=", value=150.0),
+            notes=f"VmHWM of an agent process after {rss['windows']:.0f} window sets "
+            "(simulator, extractor, outbox, MQTT uplink)",
+            digits=0,
+        ),
+        Figure(
+            name="CPU per window set (whole process)",
+            value=1e3 * cpu["cpu_s_per_window"],
+            unit="ms",
+            notes=f"{cpu['windows']:.0f} pre-generated window sets; producer thread alone "
+            f"{1e3 * cpu['producer_cpu_s_per_window']:.1f} ms",
+            digits=1,
+        ),
+        Figure(
+            name="CPU share, 12 assets at 1 window/min",
+            value=share,
+            unit="% of one core",
+            target=Target(text="< 2 % of one core", op="<", value=2.0),
+        ),
+        Figure(
+            name="backlog drain rate to a local broker",
+            value=rate,
+            unit="windows/s",
+            notes=f"{dr['messages']:,.0f} messages in {dr['drain_s']:.1f} s; "
+            f"{dr['received_frames']:,.0f} unique frames received in "
+            f"{dr['mqtt_messages']:,.0f} MQTT messages",
+            digits=0,
+        ),
+        Figure(
+            name="drain of a 7-day backlog (120,960 messages)",
+            value=FULL_BACKLOG / rate,
+            unit="s",
+            target=Target(text="within 10 minutes (≤ 600 s)", op="<=", value=600.0),
+            notes=f"measured{scaled}",
+            digits=1,
+        ),
+        Figure(
+            name="outbox on disk for a 7-day backlog",
+            value=dr["outbox_disk_mb"] * FULL_BACKLOG / dr["messages"],
+            unit="MB",
+            target=Target(text="≤ 60 MB", op="<=", value=60.0),
+            notes=f"SQLite outbox with its WAL after a checkpoint{scaled}",
+            digits=1,
+        ),
+    ]
 
 
 def main() -> int:

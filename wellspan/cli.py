@@ -26,6 +26,11 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "serve": ("prognosis_service.commands.serve", "run the prognosis service (API and ingest)"),
     "ingest": ("prognosis_service.commands.ingest", "run the MQTT ingest alone"),
     "keys": ("prognosis_service.commands.keys", "create, list and revoke API keys"),
+    "train-diagnosis": (
+        "prognosis_service.commands.train_diagnosis",
+        "train the fault classifier on simulated and maintenance-labelled data",
+    ),
+    "bench": ("wellspan.bench_command", "run the benchmarks and write docs/BENCHMARKS.md"),
 }
 
 

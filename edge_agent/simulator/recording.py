@@ -59,6 +59,7 @@ __all__ = [
     "read_asset_toml",
     "read_recordings",
     "record_simulation",
+    "toml_text",
     "write_asset_toml",
     "write_recording",
 ]
@@ -113,6 +114,8 @@ def _toml_value(value: Any) -> str:
         return repr(value)
     if isinstance(value, str):
         return json.dumps(value)
+    if isinstance(value, datetime):
+        return require_utc(value).isoformat().replace("+00:00", "Z")
     if isinstance(value, list | tuple):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
     raise TypeError(f"cannot write {type(value).__name__} value {value!r} to TOML")
@@ -136,6 +139,13 @@ def _emit(lines: list[str], prefix: str, table: Mapping[str, Any]) -> None:
             for item in value:
                 lines.extend(["", f"[[{prefix}{_toml_key(key)}]]"])
                 _emit(lines, f"{prefix}{_toml_key(key)}.", item)
+
+
+def toml_text(table: Mapping[str, Any]) -> str:
+    """A table of plain values (str, int, float, bool, UTC datetime, lists, tables) as TOML."""
+    lines: list[str] = []
+    _emit(lines, "", table)
+    return "\n".join(lines).lstrip("\n") + "\n"
 
 
 def asset_to_toml(asset: AssetConfig) -> str:

@@ -30,6 +30,7 @@ __all__ = [
     "BEARING_FAULTS",
     "DEMO_START",
     "FAULT_MODES",
+    "SALTBUSH_STORY_DAYS",
     "FaultMode",
     "FaultScenario",
     "SensorFaultEvent",
@@ -267,10 +268,17 @@ def _unit_rng(seed: int, asset_id: str) -> np.random.Generator:
     return np.random.default_rng([seed, zlib.crc32(asset_id.encode()), 0x5CE7A])
 
 
+SALTBUSH_STORY_DAYS = 180.0
+"""Length of the Saltbush Flats story at ``time_scale=1``, days."""
+
+
 def saltbush_scenarios(
-    start: datetime = DEMO_START, *, seed: int = 2026
+    start: datetime = DEMO_START, *, seed: int = 2026, time_scale: float = 1.0
 ) -> dict[str, FaultScenario]:
     """The demo's fault story for the twelve Saltbush Flats pumps over about 180 days.
+
+    ``time_scale`` stretches or compresses the whole story (onsets, lives, repairs and sensor
+    episodes alike): ``time_scale=0.1`` tells it in 18 days.
 
     Onset times and lives vary from unit to unit (onset uniform in a window, life lognormal
     with ``sigma(ln life) = 0.2`` about the median); the same ``seed`` always gives the same
@@ -299,9 +307,11 @@ def saltbush_scenarios(
     ======  ===============  =======  =====  ======  =========================================
     """
     start = require_utc(start, "start")
+    if not time_scale > 0:
+        raise ValueError(f"time_scale must be > 0, got {time_scale!r}")
 
     def day(d: float) -> datetime:
-        return start + d * _DAY
+        return start + d * time_scale * _DAY
 
     def drawn(
         asset_id: str,
@@ -314,7 +324,7 @@ def saltbush_scenarios(
     ) -> FaultScenario:
         rng = _unit_rng(seed, asset_id)
         onset = day(float(rng.uniform(*onset_days)))
-        life = draw_life_days(rng, median_days=median_life_days, dispersion=0.2)
+        life = time_scale * draw_life_days(rng, median_days=median_life_days, dispersion=0.2)
         repair = None if repair_at_life is None else onset + repair_at_life * life * _DAY
         return FaultScenario(fault=fault, onset=onset, life_days=life, repair=repair, **kw)  # type: ignore[arg-type]
 
@@ -336,7 +346,7 @@ def saltbush_scenarios(
             )
         ),
         "GIB-P3": FaultScenario(
-            fault="misalignment", onset=day(60), life_days=120.0,
+            fault="misalignment", onset=day(60), life_days=120.0 * time_scale,
             growth=StepGrowth(step=0.45), repair=day(140),
         ),
         "SPI-P1": drawn(

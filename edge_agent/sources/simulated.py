@@ -16,7 +16,10 @@ def parse_scenario(text: str, asset_id: str, *, start: datetime, seed: int) -> A
     """Build a fault scenario from its configuration form.
 
     ``"saltbush"``
-        The demo story of this Saltbush Flats pump (``saltbush_scenarios``).
+        The demo story of this Saltbush Flats pump (``saltbush_scenarios``), about 180 days.
+    ``"saltbush:<story_days>[:<delay_days>]"``
+        The same story told in ``story_days`` (compressed or stretched), starting
+        ``delay_days`` after ``start`` (default 0), e.g. ``"saltbush:20"`` or ``"saltbush:20:2"``.
     ``"healthy"``
         No fault.
     ``"<fault>:<onset_days>:<life_days>"``
@@ -26,22 +29,38 @@ def parse_scenario(text: str, asset_id: str, *, start: datetime, seed: int) -> A
     from edge_agent.simulator import (
         FAULT_MODES,
         SALTBUSH_ASSET_IDS,
+        SALTBUSH_STORY_DAYS,
         FaultScenario,
         saltbush_scenarios,
     )
 
-    if text == "saltbush":
+    if text == "saltbush" or text.startswith("saltbush:"):
         if asset_id not in SALTBUSH_ASSET_IDS:
             raise ValueError(
                 f"scenario 'saltbush' exists only for {list(SALTBUSH_ASSET_IDS)}, not {asset_id!r}"
             )
-        return saltbush_scenarios(start, seed=seed)[asset_id]
+        scale, delay = 1.0, 0.0
+        if text != "saltbush":
+            parts = text.split(":")[1:]
+            try:
+                scale = float(parts[0]) / SALTBUSH_STORY_DAYS
+                delay = float(parts[1]) if len(parts) == 2 else 0.0 if len(parts) == 1 else -1.0
+            except ValueError:
+                scale = float("nan")
+            if not scale > 0 or not delay >= 0:
+                raise ValueError(
+                    "'saltbush:<story_days>[:<delay_days>]' needs story_days > 0 and "
+                    f"delay_days >= 0, got {text!r}"
+                )
+        story_start = start + timedelta(days=delay)
+        return saltbush_scenarios(story_start, seed=seed, time_scale=scale)[asset_id]
     if text == "healthy":
         return FaultScenario()
     parts = text.split(":")
     if len(parts) != 3 or parts[0] not in FAULT_MODES:
         raise ValueError(
-            f"scenario must be 'saltbush', 'healthy' or '<fault>:<onset_days>:<life_days>' "
+            f"scenario must be 'saltbush[:<story_days>[:<delay_days>]]', 'healthy' or "
+            f"'<fault>:<onset_days>:<life_days>' "
             f"with fault in {list(FAULT_MODES)}, got {text!r}"
         )
     try:
