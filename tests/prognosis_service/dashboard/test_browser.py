@@ -34,9 +34,13 @@ def _screens() -> Path:
 
 
 def _wait(driver: Any, condition: Any, message: str) -> Any:
+    from selenium.common.exceptions import StaleElementReferenceException
     from selenium.webdriver.support.ui import WebDriverWait
 
-    return WebDriverWait(driver, WAIT_S).until(condition, message)
+    # The page replaces its charts when it redraws them; an element read mid-redraw goes stale,
+    # which only means "not yet".
+    wait = WebDriverWait(driver, WAIT_S, ignored_exceptions=(StaleElementReferenceException,))
+    return wait.until(condition, message)
 
 
 def _by_id(driver: Any, element_id: str) -> Any:
