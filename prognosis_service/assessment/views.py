@@ -11,8 +11,8 @@ import uuid
 from datetime import UTC, datetime, timedelta
 from typing import Any
 
-from sqlalchemy import and_, or_, select
-from sqlalchemy.orm import Session
+from sqlalchemy import Select, and_, or_, select
+from sqlalchemy.orm import InstrumentedAttribute, Session
 
 from prognosis_service.alerts.rules import ZoneRule, severity_zone
 from prognosis_service.assessment.assessor import model_from_state
@@ -251,6 +251,34 @@ def _event_out(e: MaintenanceEventRow) -> MaintenanceEventOut:
     )
 
 
+def _keyset_page(
+    session: Session,
+    stmt: Select[Any],
+    time_col: InstrumentedAttribute[datetime],
+    id_col: InstrumentedAttribute[uuid.UUID],
+    cursor: str | None,
+    limit: int,
+) -> tuple[list[Any], str | None]:
+    """One page of ``stmt`` in (time, id) order after ``cursor``, and the next page's cursor."""
+    if cursor:
+        t_text, id_text = decode_cursor(cursor, 2)
+        try:
+            t, i = datetime.fromisoformat(str(t_text)), uuid.UUID(str(id_text))
+        except ValueError:
+            raise InvalidInputError(
+                "cursor is not valid; pass next_cursor back unchanged"
+            ) from None
+        stmt = stmt.where(or_(time_col > t, and_(time_col == t, id_col > i)))
+    rows = list(session.scalars(stmt.order_by(time_col, id_col).limit(limit + 1)))
+    if len(rows) <= limit:
+        return rows, None
+    rows = rows[:limit]
+    last = rows[-1]
+    return rows, encode_cursor(
+        getattr(last, time_col.key).isoformat(), getattr(last, id_col.key).hex
+    )
+
+
 def health_history(
     session: Session,
     asset_id: str,
@@ -273,29 +301,9 @@ def health_history(
         stmt = stmt.where(HealthPointRow.window_start >= start)
     if end is not None:
         stmt = stmt.where(HealthPointRow.window_start < end)
-    if cursor:
-        ws_text, mid = decode_cursor(cursor, 2)
-        try:
-            ws, m = datetime.fromisoformat(str(ws_text)), uuid.UUID(str(mid))
-        except ValueError:
-            raise InvalidInputError(
-                "cursor is not valid; pass next_cursor back unchanged"
-            ) from None
-        stmt = stmt.where(
-            or_(
-                HealthPointRow.window_start > ws,
-                and_(HealthPointRow.window_start == ws, HealthPointRow.message_id > m),
-            )
-        )
-    rows = list(
-        session.scalars(
-            stmt.order_by(HealthPointRow.window_start, HealthPointRow.message_id).limit(limit + 1)
-        )
+    rows, nxt = _keyset_page(
+        session, stmt, HealthPointRow.window_start, HealthPointRow.message_id, cursor, limit
     )
-    nxt = None
-    if len(rows) > limit:
-        rows = rows[:limit]
-        nxt = encode_cursor(rows[-1].window_start.isoformat(), rows[-1].message_id.hex)
     points = [
         HealthPointOut(
             t=p.window_start,
@@ -394,29 +402,9 @@ def list_maintenance_events(
     """The asset's maintenance events, oldest first."""
     get_asset(session, asset_id, principal)
     stmt = select(MaintenanceEventRow).where(MaintenanceEventRow.asset_id == asset_id)
-    if cursor:
-        at_text, eid = decode_cursor(cursor, 2)
-        try:
-            at, e = datetime.fromisoformat(str(at_text)), uuid.UUID(str(eid))
-        except ValueError:
-            raise InvalidInputError(
-                "cursor is not valid; pass next_cursor back unchanged"
-            ) from None
-        stmt = stmt.where(
-            or_(
-                MaintenanceEventRow.at > at,
-                and_(MaintenanceEventRow.at == at, MaintenanceEventRow.event_id > e),
-            )
-        )
-    rows = list(
-        session.scalars(
-            stmt.order_by(MaintenanceEventRow.at, MaintenanceEventRow.event_id).limit(limit + 1)
-        )
+    rows, nxt = _keyset_page(
+        session, stmt, MaintenanceEventRow.at, MaintenanceEventRow.event_id, cursor, limit
     )
-    nxt = None
-    if len(rows) > limit:
-        rows = rows[:limit]
-        nxt = encode_cursor(rows[-1].at.isoformat(), rows[-1].event_id.hex)
     return MaintenanceEventPage(
         items=[_event_out(e) for e in rows], count=len(rows), next_cursor=nxt
     )
