@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pytest
 
+from tests.brokers import require_tool
 from tests.deploy.broker_harness import DEPLOY
 
 pytestmark = pytest.mark.postgres
@@ -40,10 +41,11 @@ def query(sql: str, database: str = "test") -> list[list[str]]:
 
 @pytest.fixture
 def name() -> Iterator[str]:
-    if shutil.which("psql") is None:
-        pytest.skip("psql not installed")
-    if psql("-c", "select 1").returncode != 0:
-        pytest.skip("PostgreSQL is not reachable on 127.0.0.1:5432")
+    # ./dev test installs and starts PostgreSQL: under CI their absence fails the test
+    require_tool(shutil.which("psql") is not None, "psql not installed")
+    require_tool(
+        psql("-c", "select 1").returncode == 0, "PostgreSQL is not reachable on 127.0.0.1:5432"
+    )
     unique = f"wellspan_deploytest_{uuid.uuid4().hex[:10]}"
     yield unique
     psql("-c", f'DROP DATABASE IF EXISTS "{unique}" WITH (FORCE)')

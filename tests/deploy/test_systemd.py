@@ -14,6 +14,7 @@ from pathlib import Path
 import pytest
 
 from prognosis_service.settings import Settings, SettingsError, load_settings
+from tests.brokers import require_tool
 from tests.deploy.broker_harness import DEPLOY
 from wellspan.cli import build_parser
 
@@ -151,8 +152,8 @@ def test_ingest_replica_refuses_to_start_without_postgresql_and_a_share_group(
 def test_systemd_analyze_verify_finds_nothing(tmp_path: Path) -> None:
     # The one change: ExecStart's binary must exist for verify, so it points at this checkout's.
     wellspan = Path(sys.executable).with_name("wellspan")
-    if not wellspan.exists():
-        pytest.skip("the wellspan console script is not installed in this environment")
+    # ./dev installs the project (and its console script) into .venv
+    require_tool(wellspan.exists(), "the wellspan console script is not installed here")
     names = []
     for unit in UNITS:
         text = (SYSTEMD / unit).read_text()

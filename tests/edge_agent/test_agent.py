@@ -31,7 +31,7 @@ from shared_schema import (
     parse_topic,
     split_batch,
 )
-from tests.brokers import MosquittoBroker, make_certificates
+from tests.brokers import MosquittoBroker, make_certificates, require_tool
 from tests.edge_agent.helpers import (
     GATEWAY,
     SITE,
@@ -234,8 +234,7 @@ def test_clean_shutdown_leaves_offline_status_retained(
 def test_a_third_party_subscriber_receives_what_the_codec_decodes(
     tmp_path: Path, mosquitto: MosquittoBroker
 ) -> None:
-    if not Path(MOSQUITTO_SUB).exists():
-        pytest.skip("mosquitto_sub not installed")
+    require_tool(Path(MOSQUITTO_SUB).exists(), "mosquitto_sub not installed")
     sub = subprocess.Popen(
         [MOSQUITTO_SUB, "-h", mosquitto.host, "-p", str(mosquitto.port), "-q", "1", "-V", "5",
          "-t", "wellspan/#", "-F", "%t %x"],
