@@ -14,11 +14,22 @@ write, a third of the size and no slower to read, so it is the layout here. The 
 by value (e.g. "all windows where kurtosis > 6") cannot use an index and unpacks in Python.
 Missing values are stored as NaN: the contract refuses non-finite numbers, so NaN can only mean
 "not computed".
+
+History index — the history query (domain/history.py) reads ``id, window_start, layout_digest,
+values_f32, quality`` of one asset over a time range. With an index on ``(asset_id,
+window_start)`` alone each of its 1,440 rows (60 days hourly) was a random read of the table;
+covering the query from the index (PostgreSQL: ``INCLUDE``; SQLite, which has no ``INCLUDE``:
+the columns in the key) makes it one range scan. Measured at 1,000 assets × 60 days hourly, the
+SQL alone on the driver: PostgreSQL 34–42 ms → 0.33 ms, SQLite p50 12–24 ms → 1.9 ms. The price
+is the values stored twice: the SQLite file grew by 44 % (541 → 777 MB there), and writes
+slowed by 2–7 % (``store_write_rates`` in bench/bench_service.py, 20,000 messages). PostgreSQL
+answers from the index alone once (auto)vacuum has marked the pages all-visible.
 """
 
 from __future__ import annotations
 
 import uuid
+from collections.abc import Callable
 from datetime import UTC, datetime
 from typing import Any, ClassVar
 
@@ -55,6 +66,7 @@ __all__ = [
     "Site",
     "UtcDateTime",
     "import_all_models",
+    "object_applies",
 ]
 
 NAMING_CONVENTION = {
@@ -159,7 +171,23 @@ class MessageRow(Base):
     __table_args__ = (
         UniqueConstraint("gateway_id", "sequence"),
         UniqueConstraint("message_id"),
-        Index("ix_messages_asset_id_window_start", "asset_id", "window_start"),
+        # covers the history query, one form per dialect (see "History index" above)
+        Index(
+            "ix_messages_history",
+            "asset_id",
+            "window_start",
+            "id",
+            postgresql_include=["layout_digest", "values_f32", "quality"],
+        ).ddl_if(dialect="postgresql"),
+        Index(
+            "ix_messages_history_lite",
+            "asset_id",
+            "window_start",
+            "id",
+            "layout_digest",
+            "values_f32",
+            "quality",
+        ).ddl_if(dialect="sqlite"),
     )
 
     id: Mapped[int] = mapped_column(BigId, primary_key=True, autoincrement=True)
@@ -270,3 +298,16 @@ def import_all_models() -> None:
     for mod in pkgutil.walk_packages(prognosis_service.__path__, "prognosis_service."):
         if mod.name.endswith(".models"):
             importlib.import_module(mod.name)
+
+
+def object_applies(dialect: str) -> Callable[[Any, str | None, str, bool, Any], bool]:
+    """An Alembic ``include_object`` hook that leaves out indexes made for another dialect
+    (``Index(...).ddl_if(dialect=...)``), which autogenerate would otherwise call missing."""
+
+    def include(obj: Any, _name: str | None, type_: str, reflected: bool, _other: Any) -> bool:
+        if type_ != "index" or reflected:
+            return True
+        only = getattr(obj, "_ddl_if", None)
+        return only is None or only.dialect is None or only.dialect == dialect
+
+    return include

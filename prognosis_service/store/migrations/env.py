@@ -5,7 +5,7 @@ from __future__ import annotations
 from alembic import context
 from sqlalchemy import create_engine, pool
 
-from prognosis_service.store.models import Base, import_all_models
+from prognosis_service.store.models import Base, import_all_models, object_applies
 
 import_all_models()
 config = context.config
@@ -34,6 +34,7 @@ def run_migrations_online() -> None:
             connection=connection,
             target_metadata=target_metadata,
             render_as_batch=connection.dialect.name == "sqlite",
+            include_object=object_applies(connection.dialect.name),
         )
         with context.begin_transaction():
             context.run_migrations()
