@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
@@ -87,6 +88,10 @@ def create_app(settings: Settings | None = None, *, run_ingest: bool = False) ->
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         runtime = start_runtime(settings, run_ingest=run_ingest)
         app.state.runtime = runtime
+        # The modules and caches loaded by now live as long as the process. Without this every
+        # full collection walks them all: with numpy, scipy and scikit-learn loaded that took
+        # about 100 ms, and one history request in ten (1,440 points) paid it.
+        gc.freeze()
         log.info("service ready (%s, ingest %s)", runtime.store, "on" if run_ingest else "off")
         try:
             yield
