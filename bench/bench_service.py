@@ -12,6 +12,8 @@ Measured, in one run, on a private Mosquitto and a private PostgreSQL database:
   (commit before acknowledgement), messages per second and its share of the broker-only rate;
 * HTTP batch ingest: ``POST /v1/indicators`` with 1,000 readable messages per request against
   ``wellspan serve --no-ingest`` (uvicorn), two client threads;
+* store writes: the same N messages through the ingest pipeline straight into each store (no
+  broker), against the same rows written through the driver (executemany; COPY on PostgreSQL);
 * history query latency: ``GET /v1/assets/{id}/indicators/{name}`` over 60 days with the store
   filled with ``--assets`` × ``--days`` × 24 hourly messages (bulk-loaded), p50 and p99.
 
