@@ -242,6 +242,7 @@ class _Run:
         self.config = config
         self.classifier = classifier
         self.outcome = outcome
+        self.snapshot_id = row.cursor_id
         state = dict(row.state or {})
         self.state = state
         self.baseline = (
@@ -363,7 +364,11 @@ class _Run:
         cfg = self.config
         seg = self.row.segment_start
         assert seg is not None
-        conds = [MessageRow.window_start >= seg, ~after_key(last.key)]
+        conds = [
+            MessageRow.window_start >= seg,
+            ~after_key(last.key),
+            MessageRow.id <= self.snapshot_id,  # what later runs count as seen
+        ]
         rows = [
             w
             for w in load_windows(self.session, self.asset.asset_id, *conds)
@@ -390,12 +395,54 @@ class _Run:
         self.score_and_store(rows)
 
     # -- processing ---------------------------------------------------------------------------
+    def _behind_cursor(self, seg: datetime, last: WindowKey) -> list[Window] | None:
+        """Windows up to ``last`` with ids at or below the cursor that no run has seen.
+
+        Row ids are handed out at insert and become visible at commit: with two consumers, the
+        transaction holding lower ids can commit after a run has read past higher ones, so
+        "id above the cursor" alone would miss those rows for good. Two counts over the
+        indexes find the gap (every window seen after the baseline has a point; before it,
+        the learning count and the excluded points add up); only then are rows read. Returns
+        None when a gap exists but cannot be named window by window (still learning).
+        """
+        aid, cursor = self.asset.asset_id, self.row.cursor_id
+        behind = [MessageRow.window_start >= seg, MessageRow.id <= cursor, ~after_key(last)]
+        n_rows = self.session.scalar(
+            select(func.count()).select_from(MessageRow).where(MessageRow.asset_id == aid, *behind)
+        )
+        points = select(func.count()).where(
+            HealthPointRow.asset_id == aid,
+            HealthPointRow.segment_start == seg,
+            HealthPointRow.message_row_id <= cursor,
+        )
+        n_seen = int(self.session.scalar(points) or 0)
+        if self.baseline is None:
+            n_seen += int(self.state.get("learning", 0))
+        if int(n_rows or 0) <= n_seen:
+            return []
+        if self.baseline is None:
+            return None
+        scored = select(HealthPointRow.id).where(
+            HealthPointRow.asset_id == aid, HealthPointRow.message_row_id == MessageRow.id
+        )
+        return load_windows(self.session, aid, *behind, ~scored.exists())
+
     def process(self, snapshot_id: int) -> None:
         cfg = self.config
         aid = self.asset.asset_id
         seg = self.row.segment_start
         if seg is None:
             return
+        self.snapshot_id = snapshot_id
+        last = self.last_key
+        if last is not None:
+            missed = self._behind_cursor(seg, last)
+            end = self.baseline_end
+            if missed is None or (missed and (end is None or min(w.key for w in missed) <= end)):
+                self.reset_segment(seg)
+            elif missed:
+                self.score_and_store(missed)
+                self.outcome.late += len(missed)
         last = self.last_key
         if last is not None:
             late = load_windows(
