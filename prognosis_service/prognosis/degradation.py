@@ -7,8 +7,9 @@ healthy, 1 failure threshold).
 
 The models' error is a Brownian motion (a random walk), not white measurement noise. Feed them one
 value per aggregation period (e.g. the daily median of the health index), not raw high-rate
-samples: white noise on closely spaced points inflates the estimated ``σ²`` and so the intervals
-and makes trends harder to detect.
+samples: white noise on closely spaced points inflates the estimated ``σ²`` and so the intervals.
+The trend test allows for such noise (:func:`_trend_z`), so it does not lose power as points
+accumulate.
 
 All forecasts are advisory: they do not replace protective trips, and local codes and qualified
 personnel decide what is done on the machine.
@@ -83,6 +84,46 @@ def _check_trend(owner: str, z: float, significance: float | None) -> None:
             f"{owner}: the signal shows no significant rise yet (trend z = {z:.2f}, one-sided "
             f"level {significance:g}); no forecast is made",
         )
+
+
+def _trend_z(x: NDArray, t: NDArray, sigma2: float, estimated: bool) -> float:
+    """z statistic of the rise ``x[-1] - x[0]`` against no trend (one-sided test of a rise).
+
+    The rise over the span has variance ``σ² span`` under the models' Brownian error. When
+    ``σ²`` was estimated from the increments and those show the negative lag-1 correlation of
+    white noise on the points (a random walk observed with measurement noise: increments
+    ``β Δt + σ ΔW + ε_k - ε_(k-1)``, lag-1 autocovariance ``-σε²``), the increments' spread is
+    mostly that noise, not diffusion: read as diffusion it grows the rise's variance with every
+    point (``2 σε²`` per increment) and a steady rise would never become significant. Then
+    ``σε²`` is the negated lag-1 autocovariance, ``σ²`` what is left of the increment variance,
+    and the rise's variance ``σ² span + 2 σε²``. The correlation counts only when it is below
+    Bartlett's ``-2/√m`` bound for ``m`` independent increments; otherwise (and when ``σ²`` is
+    given) the statistic is the Brownian one, ``rise / √(σ² span)``. Where the noise swamps the
+    walk (its variance several times the walk's per step), ``σ²`` is poorly determined and the
+    test rejects a trendless signal up to about twice as often as its level (Monte Carlo, 60
+    points: 8.6 % at a 5 % level); on white noise alone it is conservative.
+
+    References
+    ----------
+    A. C. Harvey, "Forecasting, Structural Time Series Models and the Kalman Filter", Cambridge
+    University Press (1989), the local level model (from memory). G. E. P. Box, G. M. Jenkins,
+    "Time Series Analysis: Forecasting and Control" (1970), Bartlett's standard error of the
+    sample autocorrelation (from memory).
+    """
+    span = float(t[-1] - t[0])
+    rise = float(x[-1] - x[0])
+    var = sigma2 * span
+    if estimated and x.size >= 5:
+        dt = np.diff(t)
+        r = np.diff(x) - rise / span * dt
+        m = r.size
+        gamma0 = float(r @ r) / m
+        gamma1 = float(r[:-1] @ r[1:]) / m
+        if gamma0 > 0 and gamma1 / gamma0 < -2.0 / math.sqrt(m):
+            noise = -gamma1
+            walk = max(float(np.sum((r * r - 2.0 * noise) / dt)) / (m - 1), _SIGMA2_FLOOR)
+            var = walk * span + 2.0 * noise
+    return rise / math.sqrt(max(var, _SIGMA2_FLOOR))
 
 
 def _increment_sigma2(dx: NDArray, dt: NDArray, slope: float, dof: int) -> float:
@@ -225,8 +266,9 @@ class ExponentialDegradation(_DegradationModel):
     min_points : int, default 5
         Fewer points raise :class:`NotEnoughDataError` (``reason="too_few_points"``).
     trend_significance : float or None, default 0.05
-        One-sided level of a data-only test that the log-signal rises (increment estimate of
-        ``β′`` over its standard error). Not significant → :class:`NotEnoughDataError`
+        One-sided level of a data-only test that the log-signal rises (its rise over the span
+        against the rise's standard error, allowing for measurement noise: :func:`_trend_z`).
+        Not significant → :class:`NotEnoughDataError`
         (``reason="no_degradation_detected"``). ``None`` forecasts from prior + data regardless.
 
     Attributes
@@ -357,7 +399,7 @@ class ExponentialDegradation(_DegradationModel):
             if estimated
             else max(float(self.sigma2), _SIGMA2_FLOOR)  # type: ignore[arg-type]
         )
-        trend_z = slope / math.sqrt(s2 / span)
+        trend_z = _trend_z(L, t_arr, s2, estimated)
         _check_trend(owner, trend_z, self.trend_significance)
         self.trend_z_ = trend_z
 
@@ -590,7 +632,7 @@ class WienerDegradation(_DegradationModel):
             if estimated
             else max(float(self.sigma2), _SIGMA2_FLOOR)  # type: ignore[arg-type]
         )
-        trend_z = slope / math.sqrt(s2 / span)
+        trend_z = _trend_z(y_arr, t_arr, s2, estimated)
         _check_trend(owner, trend_z, self.trend_significance)
         self.trend_z_ = trend_z
 

@@ -26,6 +26,9 @@ from prognosis_service.alerts.rules import (
 from prognosis_service.assessment.assessor import (
     AssessmentConfig,
     _acquire,
+    _aggregate,
+    _bucket_width,
+    _degradation_series,
     assess_asset,
     model_from_state,
 )
@@ -36,6 +39,7 @@ from prognosis_service.assessment.models import (
     MaintenanceEventRow,
 )
 from prognosis_service.assessment.worker import AssessmentWorker, assets_due
+from prognosis_service.prognosis import ExponentialDegradation, WienerDegradation
 from prognosis_service.store.engine import Store
 from shared_schema import ChannelQuality, QualityFlag
 from tests.prognosis_service.assessment.simfleet import START, register, simulate, store_messages
@@ -367,3 +371,30 @@ def test_the_fit_is_bounded_in_points(store: Store) -> None:
     assert result["model"]["bucket_h"] == pytest.approx(
         span_h / 20
     )  # wider buckets, no data dropped
+
+
+def test_a_daily_regime_offset_does_not_hide_a_steady_rise_from_the_fit() -> None:
+    # A health index rising 0.006 a day, every 3 h, 0.1 higher in the morning regime (06-12 h)
+    # than in the rest of the day (invented): a defect raises the index by a different amount
+    # in each operating regime. The half-day buckets alternate (one holds the morning, the
+    # next does not); the trend test used to read that as Brownian noise and found no rise.
+    rng = np.random.default_rng(0)
+    start = datetime(2026, 3, 1, tzinfo=UTC)
+    times = [start + timedelta(hours=3.0 * i) for i in range(8 * 120)]
+    ages_d = np.array([(t - start).total_seconds() / 86400.0 for t in times])
+    morning = np.array([6 <= t.hour < 12 for t in times])
+    y = 0.006 * ages_d + 0.1 * morning + rng.normal(0.0, 0.02, ages_d.size)
+    points = list(zip(times, y.tolist(), strict=True))
+    cfg = AssessmentConfig()
+    t, med = _aggregate(points, start, _bucket_width(points, start, cfg))
+    tf, yf, _ = _degradation_series(t, med, cfg.onset_health_index / 2.0)
+    d = np.diff(np.log(yf + 1.0))
+    assert np.corrcoef(d[:-1], d[1:])[0, 1] < -0.6  # the buckets do alternate
+    for model in (
+        ExponentialDegradation(threshold=1.0, offset=-1.0),
+        WienerDegradation(threshold=1.0),
+    ):
+        fitted = model.fit(tf, yf)  # raised NotEnoughDataError("no significant rise") before
+        assert fitted.trend_z_ > 1.645  # one-sided 5 % (the models' default trend test)
+        q10, q50, q90 = fitted.time_to_failure_quantiles((0.1, 0.5, 0.9))
+        assert 0 < q10 < q50 < q90
