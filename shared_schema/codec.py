@@ -436,6 +436,8 @@ def split_batch(payload: bytes) -> list[bytes]:
     if _read_header(r) == KIND_INDICATORS:
         return [payload]
     count = r.uvarint("batch count", limit=MAX_BATCH_FRAMES + 1)
+    if count == 0:  # encode_batch never writes one; accepted, it would vanish without a trace
+        raise DecodeError(DecodeReason.INVALID, "a batch holds 1.. frames, got 0")
     frames = []
     for i in range(count):
         size = r.uvarint(f"length of frame {i}", limit=MAX_FRAME_BYTES + 1)

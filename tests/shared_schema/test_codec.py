@@ -265,6 +265,9 @@ def test_batch_round_trip(layout: IndicatorLayout, message: IndicatorMessage) ->
     assert split_batch(encode_batch(frames)) == frames
     assert split_batch(frames[0]) == [frames[0]]
     assert _reason(split_batch, encode_batch(frames)[:-1]) is DecodeReason.TRUNCATED
+    # a batch of no frames (the encoder never writes one; found by tests/fuzz) is refused
+    empty = encode_batch(frames[:1])[:4] + b"\x00"  # magic, major version, kind; count 0
+    assert _reason(split_batch, empty) is DecodeReason.INVALID
 
 
 def test_f16_overflow_refused_at_encode(layout: IndicatorLayout, message: IndicatorMessage) -> None:
