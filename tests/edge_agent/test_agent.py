@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import random
@@ -349,9 +350,12 @@ def test_sigkill_at_random_moments_loses_and_duplicates_nothing(
         zygote.stdin.flush()  # type: ignore[union-attr]
         return int(json.loads(zygote.stdout.readline()))  # type: ignore[union-attr]
 
-    kills = 0
+    kills = produced = 0
     try:
-        while kills < 20:
+        # at least 20 kills, and on until over 100 messages exist: how many a kill interrupts
+        # depends on the machine's speed, the count to check does not (the bound is a hang guard)
+        while kills < 20 or produced <= 100:
+            assert kills < 400, f"only {produced} messages after {kills} runs"
             pid = ask({"run": argv})
             time.sleep(rng.uniform(0.1, 0.8))  # anywhere from start-up to steady production
             os.kill(pid, signal.SIGKILL)
@@ -360,6 +364,9 @@ def test_sigkill_at_random_moments_loses_and_duplicates_nothing(
             kills += 1
             db = sqlite3.connect(tmp_path / "outbox.sqlite")
             assert db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+            with contextlib.suppress(sqlite3.OperationalError):  # killed before its schema
+                row = db.execute("SELECT value FROM meta WHERE key = 'next_sequence'").fetchone()
+                produced = int(row[0]) if row else 0
             db.close()
         zygote.stdin.close()
         zygote.wait(10)
