@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import struct
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -39,14 +40,18 @@ from datetime import UTC, datetime, timedelta
 from typing import Any, TypeVar
 from uuid import UUID
 
-from pydantic import BaseModel, ValidationError
+import annotated_types
+from pydantic import BaseModel, TypeAdapter, ValidationError
 
 from shared_schema.errors import DecodeError, DecodeReason, EncodeError
 from shared_schema.messages import (
     SCHEMA_MAJOR,
+    ChannelQuality,
     ClockSync,
+    Identifier,
     IndicatorLayout,
     IndicatorMessage,
+    OperatingCondition,
     QualityFlag,
     ShaftSpeedSource,
 )
@@ -78,6 +83,7 @@ MAX_BATCH_FRAMES = 10_000
 MAX_JSON_BYTES = 4 * 1024 * 1024
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+_ZERO = timedelta(0)
 _CLOCK = [ClockSync.SYNCED, ClockSync.HOLDOVER, ClockSync.UNSYNCED]
 _SPEED: list[ShaftSpeedSource | None] = [None, *ShaftSpeedSource]
 _FLAGS = list(QualityFlag)
@@ -178,20 +184,46 @@ def _read_header(r: _Reader) -> int:
     return head[3]
 
 
-_CODES: dict[int, tuple[IndicatorLayout, tuple[str, ...]]] = {}
+@dataclass(frozen=True, slots=True)
+class _LayoutCodec:
+    """What coding needs of one layout, worked out once."""
+
+    codes: tuple[str, ...]  # struct codes of the values, in layout order
+    packed: struct.Struct  # all values present
+    names: tuple[str, ...]
+    units: dict[str, str]
+    name_list: list[str]  # as lists, to compare with the readable form's in one go
+    unit_list: list[str]
+
+
+_CODECS: dict[int, tuple[IndicatorLayout, _LayoutCodec]] = {}
+
+
+def _codec_of(layout: IndicatorLayout) -> _LayoutCodec:
+    # Cached by identity, not by digest or with lru_cache: the digest is computed on each access
+    # and hashing a frozen layout hashes every spec, either of which cost more than decoding the
+    # frame. The entry keeps the layout alive, so its id stays unique.
+    hit = _CODECS.get(id(layout))
+    if hit is not None and hit[0] is layout:
+        return hit[1]
+    specs = layout.indicators
+    codes = tuple("e" if s.encoding == "f16" else "f" for s in specs)
+    codec = _LayoutCodec(
+        codes=codes,
+        packed=struct.Struct("<" + "".join(codes)),
+        names=tuple(s.name for s in specs),
+        units={s.name: s.unit for s in specs},
+        name_list=[s.name for s in specs],
+        unit_list=[s.unit for s in specs],
+    )
+    if len(_CODECS) >= 256:
+        _CODECS.clear()
+    _CODECS[id(layout)] = (layout, codec)
+    return codec
 
 
 def _value_codes(layout: IndicatorLayout) -> tuple[str, ...]:
-    # Cached by identity, not with lru_cache: hashing a frozen layout hashes every spec, which
-    # cost more than decoding the frame. The entry keeps the layout alive, so its id stays unique.
-    hit = _CODES.get(id(layout))
-    if hit is not None and hit[0] is layout:
-        return hit[1]
-    codes = tuple("e" if s.encoding == "f16" else "f" for s in layout.indicators)
-    if len(_CODES) >= 256:
-        _CODES.clear()
-    _CODES[id(layout)] = (layout, codes)
-    return codes
+    return _codec_of(layout).codes
 
 
 def _resolve(layouts: LayoutLookup, digest: str) -> IndicatorLayout:
@@ -209,6 +241,294 @@ def _check_layout(msg: IndicatorMessage, layout: IndicatorLayout) -> None:
             f"layout {layout.digest} has {len(layout.indicators)} indicators, "
             f"message has {len(msg.values)} values"
         )
+
+
+# -- fast path for well-formed messages -------------------------------------------------------
+#
+# Nearly every message is well formed, and validating it through the pydantic models cost more
+# than parsing it. The fast decoders below take only input they can prove valid with plain
+# checks (types, the contract's own bounds, identifiers the contract has accepted before) and
+# build the frozen models without validating them again; anything else, including every
+# refusal, goes to the checked path, which decides and words the reason exactly as before.
+# tests/shared_schema/test_codec_fast_path.py holds the two paths to the same results.
+
+
+class _SlowPathError(Exception):
+    """Input the fast decoder does not take: the checked decoder decides."""
+
+
+_setattr = object.__setattr__
+
+
+def _built(cls: type[M], fields: dict[str, Any], fields_set: set[str]) -> M:
+    """A model from fields that passed the fast checks (what ``model_construct`` does, without
+    its per-field default handling: ``fields`` holds every field, in declaration order)."""
+    model = cls.__new__(cls)
+    _setattr(model, "__dict__", fields)
+    _setattr(model, "__pydantic_fields_set__", fields_set)
+    _setattr(model, "__pydantic_extra__", None)
+    _setattr(model, "__pydantic_private__", None)
+    return model
+
+
+_Bounds = tuple[float, float, bool, bool]  # low, high, low inclusive, high inclusive
+
+
+def _bounds(model: type[BaseModel], name: str) -> _Bounds:
+    """The numeric bounds the contract puts on a field (from its ``Field(ge=..., ...)``)."""
+    lo, hi, lo_in, hi_in = -math.inf, math.inf, True, True
+    for m in model.model_fields[name].metadata:
+        if isinstance(m, annotated_types.Ge):
+            lo, lo_in = float(m.ge), True  # type: ignore[arg-type]
+        elif isinstance(m, annotated_types.Gt):
+            lo, lo_in = float(m.gt), False  # type: ignore[arg-type]
+        elif isinstance(m, annotated_types.Le):
+            hi, hi_in = float(m.le), True  # type: ignore[arg-type]
+        elif isinstance(m, annotated_types.Lt):
+            hi, hi_in = float(m.lt), False  # type: ignore[arg-type]
+    return lo, hi, lo_in, hi_in
+
+
+def _within(v: float, b: _Bounds) -> bool:
+    lo, hi, lo_in, hi_in = b
+    return (v >= lo if lo_in else v > lo) and (v <= hi if hi_in else v < hi)
+
+
+_OPERATING_BOUNDS = {f: _bounds(OperatingCondition, f) for f, _ in _OPERATING}
+_WINDOW_S_BOUNDS = _bounds(IndicatorMessage, "window_s")
+_SPIKES_BOUNDS = _bounds(ChannelQuality, "spikes_removed")
+_SEQUENCE_LIMIT = 2**63  # IndicatorMessage.sequence: ge=0, lt=2**63 (the wire's varint limit)
+_HEAD = MAGIC + bytes((SCHEMA_MAJOR, KIND_INDICATORS))
+_OP_FIELDS = ("shaft_speed_hz", "shaft_speed_source", *(f for f, _ in _OPERATING[1:]))
+_NO_OPERATING = dict.fromkeys(_OP_FIELDS)
+
+
+@dataclass(frozen=True, slots=True)
+class _OperatingPart:
+    """For one operating-presence byte: how the present fields are packed and bounded."""
+
+    packed: struct.Struct
+    names: tuple[str, ...]
+    bounds: tuple[_Bounds, ...]
+    fields_set: frozenset[str]  # as model_validate records it (the source is always given)
+
+
+_OP_PARTS = [
+    _OperatingPart(
+        packed=struct.Struct("<" + "".join(c for b, (_, c) in enumerate(_OPERATING) if p >> b & 1)),
+        names=tuple(f for b, (f, _) in enumerate(_OPERATING) if p >> b & 1),
+        bounds=tuple(_OPERATING_BOUNDS[f] for b, (f, _) in enumerate(_OPERATING) if p >> b & 1),
+        fields_set=frozenset(
+            ("shaft_speed_source", *(f for b, (f, _) in enumerate(_OPERATING) if p >> b & 1))
+        ),
+    )
+    for p in range(1 << len(_OPERATING))
+]
+_MESSAGE_FIELDS = frozenset(IndicatorMessage.model_fields)
+_OPERATING_KEYS = frozenset(OperatingCondition.model_fields)
+_QUALITY_KEYS = frozenset(ChannelQuality.model_fields)
+_DEFAULT_OPERATING = IndicatorMessage.model_fields["operating"].default
+_CLOCK_BY_VALUE = {c.value: c for c in ClockSync}
+_SPEED_BY_VALUE = {s.value: s for s in ShaftSpeedSource}
+_FLAG_BY_VALUE = {f.value: f for f in QualityFlag}
+_UUID_TEXT = re.compile(
+    r"[0-9a-fA-F]{8}-[0-9a-fA-F]{4}-[0-9a-fA-F]{4}-[0-9a-fA-F]{4}-[0-9a-fA-F]{12}"
+)
+_ISO_UTC = re.compile(  # the form encode_json writes, ASCII digits only
+    r"[0-9]{4}-[0-9]{2}-[0-9]{2}T[0-9]{2}:[0-9]{2}:[0-9]{2}(?:\.[0-9]{3}(?:[0-9]{3})?)?(?:Z|\+00:00)"
+)
+_DIGEST_TEXT = re.compile(r"[0-9a-f]{16}")
+
+_IDENTIFIER = TypeAdapter(Identifier)
+_good_ids: set[str] = set()
+_good_channels: set[str] = set()
+
+
+def _is_identifier(value: object) -> bool:
+    """True for a string the contract accepts as a site, gateway or asset id."""
+    if type(value) is not str:
+        return False
+    if value in _good_ids:
+        return True
+    try:
+        _IDENTIFIER.validate_python(value)
+    except ValidationError:
+        return False
+    if len(_good_ids) >= 4096:
+        _good_ids.clear()
+    _good_ids.add(value)
+    return True
+
+
+def _is_channel(value: object) -> bool:
+    """True for a string the contract accepts as a channel name in quality flags."""
+    if type(value) is not str:
+        return False
+    if value in _good_channels:
+        return True
+    try:
+        ChannelQuality(channel=value)
+    except ValidationError:
+        return False
+    if len(_good_channels) >= 4096:
+        _good_channels.clear()
+    _good_channels.add(value)
+    return True
+
+
+_QualityEntry = tuple[str, frozenset[QualityFlag], int, set[str]]  # and the fields given
+
+
+def _quality_built(entries: list[_QualityEntry]) -> tuple[ChannelQuality, ...]:
+    """Channel quality as the contract normalises it: no repeats, sorted, unflagged left out."""
+    for channel, flags, spikes, _ in entries:
+        if not _is_channel(channel) or not _within(spikes, _SPIKES_BOUNDS):
+            raise _SlowPathError
+        if (spikes > 0) != (QualityFlag.SPIKES_REMOVED in flags):
+            raise _SlowPathError
+    if len({e[0] for e in entries}) != len(entries):
+        raise _SlowPathError
+    return tuple(
+        _built(
+            ChannelQuality,
+            {"channel": channel, "flags": flags, "spikes_removed": spikes},
+            given,
+        )
+        for channel, flags, spikes, given in sorted(entries, key=lambda e: e[0])
+        if flags
+    )
+
+
+def _uvarint_at(buf: bytes, pos: int, limit: int) -> tuple[int, int]:
+    shift = value = 0
+    for _ in range(10):
+        b = buf[pos]
+        pos += 1
+        value |= (b & 0x7F) << shift
+        if not b & 0x80:
+            if value >= limit:
+                raise _SlowPathError
+            return value, pos
+        shift += 7
+    raise _SlowPathError
+
+
+_BINARY_FIELDS = frozenset(
+    ("message_id", "gateway_id", "sequence", "site", "asset_id", "window_start", "window_s",
+     "clock_sync", "operating", "quality", "layout_digest", "values")
+)  # fmt: skip
+
+
+def _decode_fast(
+    frame: bytes,
+    layouts: LayoutLookup,
+    resolved: dict[str, IndicatorLayout | None],
+    site: str,
+    gateway_id: str,
+    asset_id: str,
+) -> IndicatorMessage:
+    """Decode a well-formed frame; raises _SlowPathError for anything else."""
+    try:
+        if type(frame) is not bytes or frame[:4] != _HEAD or len(frame) > MAX_FRAME_BYTES:
+            raise _SlowPathError
+        message_id = UUID(bytes=frame[4:20])
+        sequence, pos = _uvarint_at(frame, 20, _SEQUENCE_LIMIT)
+        ms = int.from_bytes(frame[pos : pos + 6], "big")
+        window_us, pos = _uvarint_at(frame, pos + 6, 2**40)
+        flags = frame[pos]
+        digest = frame[pos + 1 : pos + 9].hex()
+        op = _OP_PARTS[frame[pos + 9]]  # IndexError beyond the five presence bits
+        pos += 10
+        op_values = op.packed.unpack_from(frame, pos)
+        pos += op.packed.size
+        n_quality = frame[pos]
+        pos += 1
+        quality_entries: list[_QualityEntry] = []
+        for _ in range(n_quality):
+            end = pos + 1 + frame[pos]
+            channel = frame[pos + 1 : end].decode()
+            bits = frame[end]
+            pos = end + 1
+            if bits >> len(_FLAGS):
+                raise _SlowPathError
+            # Rebuilt from its own iteration order, as validation rebuilds it: a set's order
+            # shows in the JSON form.
+            qflags = frozenset(tuple(frozenset(f for i, f in enumerate(_FLAGS) if bits >> i & 1)))
+            spikes = 0
+            if bits & 0x04:  # QualityFlag.SPIKES_REMOVED
+                spikes, pos = _uvarint_at(frame, pos, 2**63)
+            quality_entries.append((channel, qflags, spikes, set(_QUALITY_KEYS)))
+        n, pos = _uvarint_at(frame, pos, 1025)
+        start = _EPOCH + timedelta(milliseconds=ms)
+    except (IndexError, ValueError, OverflowError, struct.error, UnicodeDecodeError):
+        raise _SlowPathError from None
+    clock_code, speed_code = flags & 0x03, (flags >> 2) & 0x07
+    if clock_code >= len(_CLOCK) or speed_code >= len(_SPEED) or flags & 0xC0:
+        raise _SlowPathError
+    if digest in resolved:
+        layout = resolved[digest]
+    else:
+        layout = resolved[digest] = layouts(digest) if callable(layouts) else layouts.get(digest)
+    if layout is None:
+        raise _SlowPathError
+    codec = _codec_of(layout)
+    if n != len(codec.codes):
+        raise _SlowPathError
+    values: tuple[float | None, ...]
+    try:
+        if flags & _MISSING_BIT:
+            size = (n + 7) // 8
+            missing = int.from_bytes(frame[pos : pos + size], "little")
+            pos += size
+            if missing >> n or pos > len(frame):
+                raise _SlowPathError
+            packer = struct.Struct(
+                "<" + "".join(c for i, c in enumerate(codec.codes) if not missing & (1 << i))
+            )
+            present = packer.unpack_from(frame, pos)
+            it = iter(present)
+            values = tuple(None if missing & (1 << i) else next(it) for i in range(n))
+        else:
+            packer = codec.packed
+            values = present = packer.unpack_from(frame, pos)
+    except struct.error:
+        raise _SlowPathError from None
+    window_s = window_us / 1e6
+    # A sum is finite only if every term is (an overflow just takes the checked path); the
+    # operating values are checked by their bounds, which NaN and infinities fail.
+    if (
+        pos + packer.size != len(frame)
+        or not math.isfinite(sum(present))
+        or (op.names[:1] == ("shaft_speed_hz",)) != (speed_code != 0)
+        or not _within(window_s, _WINDOW_S_BOUNDS)
+        or not (_is_identifier(site) and _is_identifier(gateway_id) and _is_identifier(asset_id))
+    ):
+        raise _SlowPathError
+    for v, b in zip(op_values, op.bounds, strict=True):
+        if not _within(v, b):
+            raise _SlowPathError
+    op_fields = _NO_OPERATING.copy()
+    op_fields.update(zip(op.names, op_values, strict=True))
+    op_fields["shaft_speed_source"] = _SPEED[speed_code]
+    return _built(
+        IndicatorMessage,
+        {
+            "schema_version": SCHEMA_MAJOR,
+            "message_id": message_id,
+            "gateway_id": gateway_id,
+            "sequence": sequence,
+            "site": site,
+            "asset_id": asset_id,
+            "window_start": start,
+            "window_s": window_s,
+            "clock_sync": _CLOCK[clock_code],
+            "operating": _built(OperatingCondition, op_fields, set(op.fields_set)),
+            "quality": _quality_built(quality_entries) if quality_entries else (),
+            "layout_digest": digest,
+            "values": values,
+        },
+        set(_BINARY_FIELDS),
+    )
 
 
 # -- indicator frames -------------------------------------------------------------------------
@@ -329,6 +649,26 @@ def decode_indicators(
     DecodeError
         For anything that is not a valid frame of a known version and layout.
     """
+    resolved: dict[str, IndicatorLayout | None] = {}
+    try:
+        return _decode_fast(frame, layouts, resolved, site, gateway_id, asset_id)
+    except _SlowPathError:
+        pass
+    lookup: LayoutLookup = layouts
+    if resolved:  # the layout was looked up already: do not ask the store twice
+        lookup = resolved.get
+    return _decode_checked(frame, lookup, site=site, gateway_id=gateway_id, asset_id=asset_id)
+
+
+def _decode_checked(
+    frame: bytes,
+    layouts: LayoutLookup,
+    *,
+    site: str,
+    gateway_id: str,
+    asset_id: str,
+) -> IndicatorMessage:
+    """The reference decoder: checks every field in order and words every refusal."""
     r = _Reader(frame)
     if _read_header(r) != KIND_INDICATORS:
         raise DecodeError(DecodeReason.UNKNOWN_KIND, "expected an indicator frame, got a batch")
@@ -550,26 +890,187 @@ def from_readable(data: bytes | str | Mapping[str, Any], layouts: LayoutLookup) 
             DecodeReason.UNKNOWN_VERSION, f"schema_version {body.get('schema_version')!r}"
         )
     layout = _resolve(layouts, digest)
+    codec = _codec_of(layout)
+    if (  # the usual case, checked in bulk: every indicator in layout order, units right
+        len(indicators) == len(codec.names)
+        and set(map(type, indicators)) <= {dict}
+        and [item.get("name") for item in indicators] == codec.name_list
+        and [item.get("unit", u) for item, u in zip(indicators, codec.unit_list, strict=True)]
+        == codec.unit_list
+    ):
+        body["values"] = [item.get("value") for item in indicators]
+    else:
+        body["values"] = _values_by_name(indicators, codec, digest)
+    try:
+        return _readable_fast(body)
+    except _SlowPathError:
+        pass
+    if _has_non_finite(body):
+        raise DecodeError(DecodeReason.NON_FINITE, "JSON carries NaN or infinite numbers")
+    return _validated(IndicatorMessage, body)
+
+
+def _values_by_name(indicators: list[Any], codec: _LayoutCodec, digest: str) -> list[Any]:
+    """The values of readable indicators in layout order, each name and unit checked."""
+    units = codec.units
     by_name: dict[str, Any] = {}
-    units = {s.name: s.unit for s in layout.indicators}
     for item in indicators:
-        if not isinstance(item, Mapping) or not isinstance(item.get("name"), str):
+        if type(item) is not dict and not isinstance(item, Mapping):
             raise DecodeError(DecodeReason.INVALID, "indicators: each entry needs a name")
-        name = item["name"]
-        if name not in units:
+        name = item.get("name")
+        if not isinstance(name, str):
+            raise DecodeError(DecodeReason.INVALID, "indicators: each entry needs a name")
+        unit = units.get(name)
+        if unit is None:
             raise DecodeError(
                 DecodeReason.LAYOUT_MISMATCH, f"indicator {name!r} is not in layout {digest}"
             )
-        if "unit" in item and item["unit"] != units[name]:
+        if "unit" in item and item["unit"] != unit:
             raise DecodeError(
                 DecodeReason.LAYOUT_MISMATCH,
-                f"indicator {name!r} has unit {item['unit']!r}; "
-                f"layout {digest} says {units[name]!r}",
+                f"indicator {name!r} has unit {item['unit']!r}; layout {digest} says {unit!r}",
             )
         if name in by_name:
             raise DecodeError(DecodeReason.INVALID, f"indicator {name!r} given twice")
         by_name[name] = item.get("value")
-    body["values"] = [by_name.get(s.name) for s in layout.indicators]
-    if _has_non_finite(body):
-        raise DecodeError(DecodeReason.NON_FINITE, "JSON carries NaN or infinite numbers")
-    return _validated(IndicatorMessage, body)
+    return [by_name.get(n) for n in codec.names]
+
+
+def _number(value: object, bounds: _Bounds) -> float:
+    """A finite JSON number within ``bounds``, as a float (pydantic turns an int into one)."""
+    if type(value) is float:
+        if not math.isfinite(value):
+            raise _SlowPathError
+    elif type(value) is int and -(2**53) <= value <= 2**53:
+        value = float(value)
+    else:
+        raise _SlowPathError
+    if not _within(value, bounds):
+        raise _SlowPathError
+    return value
+
+
+_ANY: _Bounds = (-math.inf, math.inf, True, True)
+_SPIKES_LIMIT = 2**63
+
+
+def _readable_fast(body: dict[str, Any]) -> IndicatorMessage:
+    """Build a message from a well-formed readable body; raises _SlowPathError otherwise."""
+    if not body.keys() <= _MESSAGE_FIELDS:
+        raise _SlowPathError
+    version = body.get("schema_version", SCHEMA_MAJOR)
+    message_id = body.get("message_id")
+    sequence = body.get("sequence")
+    window_start = body.get("window_start")
+    site, gateway_id, asset_id = body.get("site"), body.get("gateway_id"), body.get("asset_id")
+    digest = body.get("layout_digest")
+    if not (
+        type(version) is int
+        and version == SCHEMA_MAJOR
+        and type(message_id) is str
+        and _UUID_TEXT.fullmatch(message_id)
+        and type(sequence) is int
+        and 0 <= sequence < _SEQUENCE_LIMIT
+        and type(window_start) is str
+        and _ISO_UTC.fullmatch(window_start)
+        and type(digest) is str
+        and _DIGEST_TEXT.fullmatch(digest)
+        and _is_identifier(site)
+        and _is_identifier(gateway_id)
+        and _is_identifier(asset_id)
+    ):
+        raise _SlowPathError
+    try:
+        start = datetime.fromisoformat(window_start)
+    except ValueError:
+        raise _SlowPathError from None
+    if start.microsecond % 1000 or start.utcoffset() != _ZERO:
+        raise _SlowPathError
+    if start.tzinfo is not UTC:
+        start = start.astimezone(UTC)
+    clock = body.get("clock_sync", ClockSync.SYNCED)
+    if type(clock) is str:
+        clock = _CLOCK_BY_VALUE.get(clock)
+    if type(clock) is not ClockSync:
+        raise _SlowPathError
+    operating = body.get("operating")
+    if operating is None:
+        if "operating" in body:
+            raise _SlowPathError
+        operating = _DEFAULT_OPERATING
+    else:
+        operating = _readable_operating(operating)
+    quality: Any = body.get("quality", ())
+    if quality:
+        quality = _readable_quality(quality)
+    elif type(quality) is list or quality == ():
+        quality = ()
+    else:
+        raise _SlowPathError
+    values = tuple(body["values"])
+    if set(map(type, values)) != {float} or not math.isfinite(sum(values)):
+        values = tuple(
+            v if v is None or (type(v) is float and math.isfinite(v)) else _number(v, _ANY)
+            for v in values
+        )
+    return _built(
+        IndicatorMessage,
+        {
+            "schema_version": SCHEMA_MAJOR,
+            "message_id": UUID(message_id),
+            "gateway_id": gateway_id,
+            "sequence": sequence,
+            "site": site,
+            "asset_id": asset_id,
+            "window_start": start,
+            "window_s": _number(body.get("window_s"), _WINDOW_S_BOUNDS),
+            "clock_sync": clock,
+            "operating": operating,
+            "quality": quality,
+            "layout_digest": digest,
+            "values": values,
+        },
+        set(body),
+    )
+
+
+def _readable_operating(obj: object) -> OperatingCondition:
+    if type(obj) is not dict or not obj.keys() <= _OPERATING_KEYS:
+        raise _SlowPathError
+    fields = _NO_OPERATING.copy()
+    for k, v in obj.items():
+        if v is None:
+            continue
+        if k == "shaft_speed_source":
+            v = _SPEED_BY_VALUE.get(v) if type(v) is str else None
+            if v is None:
+                raise _SlowPathError
+        elif type(v) is not float or not _within(v, _OPERATING_BOUNDS[k]):
+            v = _number(v, _OPERATING_BOUNDS[k])
+        fields[k] = v
+    if (fields["shaft_speed_hz"] is None) != (fields["shaft_speed_source"] is None):
+        raise _SlowPathError
+    return _built(OperatingCondition, fields, set(obj))
+
+
+def _readable_quality(obj: object) -> tuple[ChannelQuality, ...]:
+    if type(obj) is not list:
+        raise _SlowPathError
+    entries: list[_QualityEntry] = []
+    for q in obj:
+        if type(q) is not dict or not q.keys() <= _QUALITY_KEYS:
+            raise _SlowPathError
+        flags = q.get("flags", ())
+        spikes = q.get("spikes_removed", 0)
+        if type(flags) is not list and flags != ():
+            raise _SlowPathError
+        if type(spikes) is not int or not 0 <= spikes < _SPIKES_LIMIT:
+            raise _SlowPathError
+        qflags = []
+        for f in flags:
+            flag = _FLAG_BY_VALUE.get(f) if type(f) is str else None
+            if flag is None:
+                raise _SlowPathError
+            qflags.append(flag)
+        entries.append((q.get("channel"), frozenset(qflags), spikes, set(q)))  # type: ignore[arg-type]
+    return _quality_built(entries)

@@ -408,6 +408,12 @@ class Pipeline:
             raise _RefusedError(
                 DecodeReason.MALFORMED.value, f"not a wellspan topic: {item.topic!r}"
             )
+        if parts.kind == "indicators" and parts.version == _V:  # the bulk of all traffic
+            assert parts.asset_id is not None
+            self._mqtt_indicators(
+                session, work, index, item, now, parts.site, parts.gateway_id, parts.asset_id
+            )
+            return
         identity = {
             "site_id": parts.site,
             "gateway_id": parts.gateway_id,
@@ -421,12 +427,6 @@ class Pipeline:
             )
         if not item.payload and parts.kind in ("layout", "status"):
             out.other["empty"] += 1  # a retained message being cleared: nothing to store
-            return
-        if parts.kind == "indicators":
-            assert parts.asset_id is not None
-            self._mqtt_indicators(
-                session, work, index, item, now, parts.site, parts.gateway_id, parts.asset_id
-            )
             return
         try:
             handler = {
@@ -451,23 +451,29 @@ class Pipeline:
         gateway_id: str,
         asset_id: str,
     ) -> None:
-        identity = {"site_id": site, "gateway_id": gateway_id, "asset_id": asset_id}
         try:
             frames = split_batch(item.payload) if is_batch(item.payload) else [item.payload]
         except DecodeError as exc:
-            raise _from_decode(exc, **identity) from None
+            raise _from_decode(
+                exc, site_id=site, gateway_id=gateway_id, asset_id=asset_id
+            ) from None
+
+        def lookup(digest: str) -> IndicatorLayout | None:
+            return self._layout(session, work, digest)
+
         for frame in frames:
             try:
                 msg = decode_indicators(
-                    frame,
-                    lambda d: self._layout(session, work, d),
-                    site=site,
-                    gateway_id=gateway_id,
-                    asset_id=asset_id,
+                    frame, lookup, site=site, gateway_id=gateway_id, asset_id=asset_id
                 )
                 self._admit(session, work, index, msg, item, now)
             except (DecodeError, _RefusedError) as exc:
-                refused = _from_decode(exc, **identity) if isinstance(exc, DecodeError) else exc
+                if isinstance(exc, DecodeError):
+                    refused = _from_decode(
+                        exc, site_id=site, gateway_id=gateway_id, asset_id=asset_id
+                    )
+                else:
+                    refused = exc
                 try:
                     head = peek_header(frame)
                     refused.identity.update(
@@ -557,9 +563,9 @@ class Pipeline:
                 msg.asset_id,
                 msg.window_start,
                 msg.window_s,
-                msg.clock_sync.value,
+                msg.clock_sync._value_,  # the member's value, without the enum property
                 op.shaft_speed_hz,
-                None if source is None else source.value,
+                None if source is None else source._value_,
                 op.load_fraction,
                 op.flow_m3_per_h,
                 op.suction_pressure_kpa,
@@ -860,6 +866,7 @@ _MESSAGE_COLUMNS = (
 assert set(_MESSAGE_COLUMNS) == {c.name for c in MessageRow.__table__.columns} - {"id"}
 _WINDOW_START = _MESSAGE_COLUMNS.index("window_start")
 _RECEIVED_AT = _MESSAGE_COLUMNS.index("received_at")
+assert _MESSAGE_COLUMNS[-1] == "received_at"  # _insert_messages relies on it
 
 # Binary COPY types; quality travels as text and is cast to json on the way in.
 _PG_TYPES = {
@@ -897,7 +904,7 @@ def _sqlite_time(v: datetime) -> str:
     """SQLAlchemy's text form of a SQLite DateTime (naive UTC, microseconds)."""
     if v.tzinfo is not UTC:
         v = v.astimezone(UTC)
-    return v.replace(tzinfo=None).isoformat(" ", "microseconds")
+    return v.isoformat(" ", "microseconds")[:26]  # without the "+00:00"
 
 
 def _insert_messages(session: Session, rows: list[tuple[Any, ...]]) -> list[tuple[str, str, int]]:
@@ -930,17 +937,29 @@ def _insert_messages(session: Session, rows: list[tuple[Any, ...]]) -> list[tupl
             return [tuple(r) for r in cur.fetchall()]
     stored: list[tuple[str, str, int]] = []
     ws, rec = _WINDOW_START, _RECEIVED_AT
-    for lo in range(0, len(rows), _SQLITE_CHUNK):
-        part = rows[lo : lo + _SQLITE_CHUNK]
-        flat: list[Any] = []
-        for row in part:
-            r = list(row)
-            r[0] = r[0].hex
-            r[ws] = _sqlite_time(r[ws])
-            r[rec] = _sqlite_time(r[rec])
-            flat += r
-        sql = f"INSERT INTO messages ({_COLS}) VALUES " + ", ".join([_SQLITE_ROW] * len(part))
-        stored += [tuple(r) for r in conn.exec_driver_sql(sql + _RETURNING, tuple(flat)).all()]
+    dbapi = conn.connection.driver_connection  # inside the session's transaction
+    assert dbapi is not None
+    cur = dbapi.cursor()
+    try:
+        for lo in range(0, len(rows), _SQLITE_CHUNK):
+            part = rows[lo : lo + _SQLITE_CHUNK]
+            flat: list[Any] = []
+            last_received: datetime | None = None
+            received = ""
+            for row in part:
+                if row[rec] is not last_received:  # HTTP: one arrival time for the batch
+                    last_received = row[rec]
+                    received = _sqlite_time(row[rec])
+                flat.append(row[0].hex)
+                flat += row[1:ws]
+                flat.append(_sqlite_time(row[ws]))
+                flat += row[ws + 1 : rec]
+                flat.append(received)
+            sql = f"INSERT INTO messages ({_COLS}) VALUES " + ", ".join([_SQLITE_ROW] * len(part))
+            cur.execute(sql + _RETURNING, flat)
+            stored += cur.fetchall()
+    finally:
+        cur.close()
     return stored
 
 
