@@ -193,6 +193,7 @@ class Agent:
             if v is not None:
                 resume[a.asset_id] = datetime.fromisoformat(v)
         sim_start = config.schedule.simulated_start or DEFAULT_SIMULATED_START
+        schedule_from: datetime | None = None
         if clock is None:
             if speed is not None or config.schedule.clock == "simulated":
                 start = min(resume.values()) if resume else sim_start
@@ -200,6 +201,10 @@ class Agent:
                     max(start, sim_start),
                     speed=config.schedule.simulated_speed if speed is None else speed,
                 )
+                # Simulated time runs on while the agent starts up: at high speed that is
+                # several intervals, whose ticks must not be skipped, so the schedule starts
+                # where the clock did.
+                schedule_from = clock.start
             else:
                 clock = RealClock()
         self.clock = clock
@@ -216,7 +221,7 @@ class Agent:
             self.source.recover(json.loads(self.outbox.meta("source_marks") or "[]"))
         self.scheduler = Scheduler(
             {a.asset_id: config.schedule.interval_for(a.asset_id) for a in config.assets},
-            start=self.clock.now(),
+            start=schedule_from or self.clock.now(),
             jitter_s=config.schedule.jitter_s,
             max_late_intervals=config.schedule.max_late_intervals,
             after=resume,

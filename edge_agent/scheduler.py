@@ -63,10 +63,16 @@ class Scheduler:
         }
         self._heap: list[tuple[datetime, str, int]] = []
         for asset_id in self.intervals:
-            first = start
-            if after and asset_id in after and after[asset_id] >= start:
-                first = after[asset_id] + timedelta(microseconds=1)
-            k = self._index_at_or_after(asset_id, first)
+            last = after.get(asset_id) if after else None
+            if last is not None and last >= start:
+                # the first tick strictly after the last window handled; compared on the due
+                # times themselves, since the index tolerance (1e-9 intervals) exceeds a
+                # microsecond once the interval is above 1000 s
+                k = self._index_at_or_after(asset_id, last)
+                if self._due(asset_id, k) <= last:
+                    k += 1
+            else:
+                k = self._index_at_or_after(asset_id, start)
             heapq.heappush(self._heap, (self._due(asset_id, k), asset_id, k))
 
     def _seconds(self, t: datetime) -> float:
