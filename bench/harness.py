@@ -491,6 +491,19 @@ def _registry() -> dict[str, Benchmark]:
                 "regime. No target is set by the issue; the figures are for comparison."
             ),
         ),
+        Benchmark(
+            name="chaos",
+            target="bench.bench_chaos:run",
+            title="Chaos run (wellspan.chaos)",
+            description=(
+                "The whole demo fleet on a private persistent Mosquitto and a private PostgreSQL "
+                "while the broker, the service, each gateway agent and PostgreSQL are killed "
+                "(SIGKILL) and restarted at seeded random times and the links are cut: faults "
+                "injected, messages produced and stored, losses, duplicates, alert events "
+                "missing at a webhook receiver and redeliveries. Quick: about a minute of "
+                "faults; full: about twelve. Needs Mosquitto and PostgreSQL server binaries."
+            ),
+        ),
     ]
     return {b.name: b for b in entries}
 

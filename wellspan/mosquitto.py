@@ -1,7 +1,8 @@
 """A private Mosquitto broker on a free loopback port, with its own temporary configuration.
 
 Used by the demo (``wellspan demo``) and by the tests (``tests/brokers.py``), so both run the
-broker the same way: a listener on 127.0.0.1 only, no persistence, logs to a file in its folder.
+broker the same way: a listener on 127.0.0.1 only, no persistence (unless asked for, as the
+chaos run does), logs to a file in its folder.
 """
 
 from __future__ import annotations
@@ -71,7 +72,9 @@ class MosquittoBroker:
 
     host = "127.0.0.1"
 
-    def __init__(self, workdir: Path, port: int | None = None) -> None:
+    def __init__(
+        self, workdir: Path, port: int | None = None, *, persistence: bool = False
+    ) -> None:
         if not mosquitto_installed():
             raise MosquittoMissingError(
                 f"Mosquitto binary not found at {MOSQUITTO}; {INSTALL_HINT}"
@@ -84,6 +87,7 @@ class MosquittoBroker:
         self.passwords = workdir / "passwords"
         self._proc: subprocess.Popen[bytes] | None = None
         self.tls: BrokerCertificates | None = None
+        self.persistence = persistence
 
     @property
     def url(self) -> str:
@@ -114,7 +118,7 @@ class MosquittoBroker:
         self.tls = tls
         lines = [
             f"listener {self.port} {self.host}",
-            "persistence false",
+            *self._persistence_lines(),
             "max_queued_messages 0",
             f"log_dest file {self.log}",
             "log_type error",
@@ -149,6 +153,18 @@ class MosquittoBroker:
             except OSError:
                 time.sleep(0.02)
         raise RuntimeError(f"mosquitto did not listen on {self.port} within 10 s")
+
+    def _persistence_lines(self) -> list[str]:
+        if not self.persistence:
+            return ["persistence false"]
+        # Sessions and queued QoS 1 messages survive a restart. Mosquitto saves its state as a
+        # snapshot, not a log: saving after every change keeps what a SIGKILL can lose small.
+        return [
+            "persistence true",
+            f"persistence_location {self.workdir}/",
+            "autosave_on_changes true",
+            "autosave_interval 1",
+        ]
 
     def set_users(self, users: Mapping[str, str]) -> None:
         self._write_users(users)
