@@ -285,8 +285,7 @@ class _Engine(DemoEngine):
 
     def _start_service(self) -> None:
         super()._start_service()
-        procs = [p for name, p in self.children._children if name == "service"]
-        self.service_proc = procs[-1]
+        self.service_proc = self.children.latest("service")
 
     def service_ready(self) -> bool:
         assert self._http is not None
@@ -431,9 +430,8 @@ class ChaosRun:
         kind, _, name = target.partition(":")
         if kind == "broker":
             broker = self.engine.broker
-            assert isinstance(broker, MosquittoBroker) and broker._proc is not None
-            broker._proc.send_signal(signal.SIGKILL)
-            broker._proc.wait()
+            assert isinstance(broker, MosquittoBroker)
+            broker.kill()
         elif kind == "service":
             _kill_group(self.engine.service_proc)
         elif kind == "postgres":

@@ -172,6 +172,12 @@ class MosquittoBroker:
         os.kill(self._proc.pid, signal.SIGHUP)
         time.sleep(0.2)
 
+    def kill(self) -> None:
+        """SIGKILL, as a crash or power loss would stop it (``start`` brings it back)."""
+        if self._proc is not None and self._proc.poll() is None:
+            self._proc.kill()
+            self._proc.wait()
+
     def stop(self) -> None:
         if self._proc is None:
             return

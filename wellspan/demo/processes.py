@@ -44,6 +44,10 @@ class ChildProcesses:
         self._children.append((name, proc))
         return proc
 
+    def latest(self, name: str) -> subprocess.Popen[bytes] | None:
+        """The process last started under ``name`` (a restarted child keeps its name)."""
+        return next((p for n, p in reversed(self._children) if n == name), None)
+
     @property
     def pids(self) -> dict[str, int]:
         return {name: p.pid for name, p in self._children}
