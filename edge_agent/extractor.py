@@ -284,6 +284,11 @@ class Extractor:
         # Defect lines per bearing as multiples of shaft rate: ftf, bsf, 2 bsf, bpfo, bpfi.
         self._multiples = {key: _defect_multiples(g) for key, g in asset.bearings.items()}
         self._needs_envelope = any(q in _ENV_NAMES for q in quantities)
+        wanted = set(quantities)
+        self._needs_orders = bool(wanted & {"order_1x", "order_2x", "order_3x", "vane_pass"})
+        self._needs_high_band = "high_band_rms" in wanted
+        self._needs_centroid = "spectral_centroid" in wanted
+        self._needs_peak = "peak_frequency" in wanted
 
     def __repr__(self) -> str:
         return (
@@ -495,11 +500,6 @@ class Extractor:
             machine_group=self.asset.severity.machine_group,
             foundation=self.asset.severity.foundation,
         )
-        orders = np.array([1.0, 2.0, 3.0, float(self.asset.vane_count)]) * shaft_hz
-        ov = _order_velocity_from_spectrum(spec, np.where(orders < nyq, orders, np.nan))
-        hb = (self.high_band[0], min(self.high_band[1], 0.95 * nyq))
-        high = float(_high_band_from_spectrum(spec, hb, False)) if hb[0] < hb[1] else math.nan
-        peaks = _dominant_peaks_from_spectrum(spec, 1, vb)
         out = {
             "rms": td.rms,
             "peak": td.peak,
@@ -508,16 +508,27 @@ class Extractor:
             "skewness": td.skewness,
             "velocity_rms": velocity,
             "iso_zone": float(ZONE_NUMBER[zone]),
-            "order_1x": float(ov[0]),
-            "order_2x": float(ov[1]),
-            "order_3x": float(ov[2]),
-            "vane_pass": float(ov[3]),
-            "high_band_rms": high,
-            "spectral_centroid": float(_centroid_from_spectrum(spec, None)),
-            "peak_frequency": float(peaks.frequencies_hz[0])
-            if peaks.frequencies_hz.size
-            else math.nan,
         }
+        # Spectral quantities outside the layout are not computed.
+        if self._needs_orders:
+            orders = np.array([1.0, 2.0, 3.0, float(self.asset.vane_count)]) * shaft_hz
+            ov = _order_velocity_from_spectrum(spec, np.where(orders < nyq, orders, np.nan))
+            out["order_1x"] = float(ov[0])
+            out["order_2x"] = float(ov[1])
+            out["order_3x"] = float(ov[2])
+            out["vane_pass"] = float(ov[3])
+        if self._needs_high_band:
+            hb = (self.high_band[0], min(self.high_band[1], 0.95 * nyq))
+            out["high_band_rms"] = (
+                float(_high_band_from_spectrum(spec, hb, False)) if hb[0] < hb[1] else math.nan
+            )
+        if self._needs_centroid:
+            out["spectral_centroid"] = float(_centroid_from_spectrum(spec, None))
+        if self._needs_peak:
+            peaks = _dominant_peaks_from_spectrum(spec, 1, vb)
+            out["peak_frequency"] = (
+                float(peaks.frequencies_hz[0]) if peaks.frequencies_hz.size else math.nan
+            )
         band = None
         if self._needs_envelope and c.bearing is not None:
             env, band = self._envelope(spec, x, fs, shaft_hz, self._multiples[c.bearing])

@@ -17,6 +17,7 @@ Hann-windowed and transformed once more.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from typing import Any
 
@@ -38,15 +39,37 @@ __all__ = [
 ]
 
 FloatArray = npt.NDArray[np.floating[Any]]
+ComplexArray = npt.NDArray[np.complexfloating[Any, Any]]
+IntArray = npt.NDArray[np.intp]
+
+
+@functools.lru_cache(maxsize=16)
+def _periodic_hann(n: int) -> FloatArray:
+    """Periodic Hann window of ``n`` samples (read-only)."""
+    w: FloatArray = 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
+    w.flags.writeable = False
+    return w
+
+
+def _frames_stft(a: FloatArray, nperseg: int) -> ComplexArray:
+    """STFT with a periodic Hann window, hop nperseg // 2: shape (frames, nperseg // 2 + 1)."""
+    hop = nperseg // 2
+    step = a.strides[0]
+    # The frames as a read-only view (sliding_window_view(a, nperseg)[::hop], without its checks).
+    frames = np.lib.stride_tricks.as_strided(
+        a,
+        shape=((a.size - nperseg) // hop + 1, nperseg),
+        strides=(hop * step, step),
+        writeable=False,
+    )
+    z: ComplexArray = scipy.fft.rfft(frames * _periodic_hann(nperseg), axis=-1, workers=1)
+    return z
 
 
 def _frames_spectrum(a: FloatArray, nperseg: int) -> tuple[FloatArray, FloatArray]:
     """|STFT|² with a periodic Hann window, hop nperseg // 2; and the window itself."""
-    hop = nperseg // 2
-    frames = np.lib.stride_tricks.sliding_window_view(a, nperseg)[::hop]
-    w = 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(nperseg) / nperseg)
-    z = np.fft.rfft(frames * w, axis=-1)
-    return z.real**2 + z.imag**2, w
+    z = _frames_stft(a, nperseg)
+    return z.real**2 + z.imag**2, _periodic_hann(nperseg)
 
 
 def _check_nperseg(nperseg: int, n: int) -> int:
@@ -143,15 +166,30 @@ def _gaussian_reference(w: FloatArray, widths: npt.NDArray[np.intp]) -> FloatArr
     return out
 
 
-def _select_band_core(
-    a: FloatArray,
-    fs: float,
-    nperseg: int,
-    min_bandwidth_hz: float,
-    f_range: tuple[float, float],
-) -> SelectedBand:
-    p, w = _frames_spectrum(a, nperseg)
-    nbins = p.shape[1]
+@dataclass(frozen=True, slots=True, eq=False)
+class _BandGrid:
+    """The candidate bands of :func:`_select_band_core` for one configuration.
+
+    Band ``b`` covers the usable STFT bins ``lo[b] .. hi[b] - 1`` counted from ``kmin``; the
+    bands of ``levels[i]`` are ``bounds[i] .. bounds[i + 1] - 1``, each with the Gaussian
+    reference ``ref[i]``.
+    """
+
+    kmin: int
+    span: int
+    levels: tuple[int, ...]
+    widths: tuple[int, ...]
+    ref: tuple[float, ...]
+    bounds: tuple[int, ...]
+    lo: IntArray
+    hi: IntArray
+
+
+@functools.lru_cache(maxsize=16)
+def _band_grid(
+    fs: float, nperseg: int, min_bandwidth_hz: float, f_range: tuple[float, float]
+) -> _BandGrid:
+    nbins = nperseg // 2 + 1
     dfb = fs / nperseg
     # Usable bins: drop DC and Nyquist (real-valued) and keep centres inside f_range.
     kmin = max(1, int(np.ceil(f_range[0] / dfb)))
@@ -161,8 +199,6 @@ def _select_band_core(
             f"f_range {f_range!r} holds no STFT bin at {dfb:g} Hz spacing; "
             "widen it or lower nperseg"
         )
-    c = np.zeros((p.shape[0], kmax - kmin + 2))
-    np.cumsum(p[:, kmin : kmax + 1], axis=1, out=c[:, 1:])
     span = kmax - kmin + 1
     levels = np.arange(int(np.log2(span)) + 1)
     widths = 2**levels
@@ -170,22 +206,60 @@ def _select_band_core(
     if not ok.any():
         ok[-1] = True  # the widest band is the best the range allows
     levels, widths = levels[ok], widths[ok]
-    ref = _gaussian_reference(w, widths)
-    best = SelectedBand(f_range[0], f_range[1], -np.inf, int(levels[-1]))
-    for lev, wd, r in zip(levels, widths, ref, strict=True):  # levels, not samples
-        step = max(int(wd) // 2, 1)
-        starts = np.arange(0, span - int(wd) + 1, step)
-        e = c[:, starts + int(wd)] - c[:, starts]
-        m1 = e.mean(axis=0)
-        m2 = (e * e).mean(axis=0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            kurt = np.where(m1 > 0, m2 / np.where(m1 > 0, m1, 1.0) ** 2, 0.0) - r
-        i = int(np.argmax(kurt))
-        if kurt[i] > best.excess_kurtosis:
-            k0 = kmin + int(starts[i])
+    ref = _gaussian_reference(_periodic_hann(nperseg), widths)
+    starts = [np.arange(0, span - int(wd) + 1, max(int(wd) // 2, 1)) for wd in widths]
+    lo = np.concatenate(starts)
+    hi = np.concatenate([s + int(wd) for s, wd in zip(starts, widths, strict=True)])
+    lo.flags.writeable = False
+    hi.flags.writeable = False
+    bounds = np.cumsum([0] + [s.size for s in starts])
+    return _BandGrid(
+        kmin=kmin,
+        span=span,
+        levels=tuple(int(v) for v in levels),
+        widths=tuple(int(v) for v in widths),
+        ref=tuple(float(v) for v in ref),
+        bounds=tuple(int(v) for v in bounds),
+        lo=lo,
+        hi=hi,
+    )
+
+
+def _select_band_core(
+    a: FloatArray,
+    fs: float,
+    nperseg: int,
+    min_bandwidth_hz: float,
+    f_range: tuple[float, float],
+) -> SelectedBand:
+    grid = _band_grid(float(fs), int(nperseg), float(min_bandwidth_hz), tuple(f_range))
+    dfb = fs / nperseg
+    z = _frames_stft(a, nperseg)[:, grid.kmin : grid.kmin + grid.span]
+    # Running sums of the bins' powers along frequency, frame by frame (row j + 1 holds bins
+    # 0..j), added in the order numpy.cumsum adds them; rows are contiguous for the sums.
+    p = (z.real**2 + z.imag**2).T.copy()
+    c = np.empty((grid.span + 1, p.shape[1]))
+    c[0] = 0.0
+    for j in range(grid.span):  # bins, not samples
+        np.add(c[j], p[j], out=c[j + 1])
+    # Every band's power time series, shape (bands, frames), and its means over frames. Each
+    # row is contiguous, so numpy sums it pairwise, as it summed each column of the former
+    # (frames, bands) gather (laid out column by column): the same kurtosis to the last bit.
+    e = c[grid.hi] - c[grid.lo]
+    m1 = e.mean(axis=1)
+    e *= e
+    m2 = e.mean(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        kurt = np.where(m1 > 0, m2 / np.where(m1 > 0, m1, 1.0) ** 2, 0.0)
+    best = SelectedBand(f_range[0], f_range[1], -np.inf, grid.levels[-1])
+    for i, (lev, wd, r) in enumerate(zip(grid.levels, grid.widths, grid.ref, strict=True)):
+        k = kurt[grid.bounds[i] : grid.bounds[i + 1]] - r
+        j = int(np.argmax(k))
+        if k[j] > best.excess_kurtosis:
+            k0 = grid.kmin + int(grid.lo[grid.bounds[i] + j])
             lo = max((k0 - 0.5) * dfb, 0.0)
-            hi = min((k0 + int(wd) - 0.5) * dfb, fs / 2)
-            best = SelectedBand(float(lo), float(hi), float(kurt[i]), int(lev))
+            hi = min((k0 + wd - 0.5) * dfb, fs / 2)
+            best = SelectedBand(float(lo), float(hi), float(k[j]), lev)
     return best
 
 
@@ -288,11 +362,14 @@ def _ses_from_spectrum(spec: Spectrum, band: tuple[float, float], fmax: float) -
     zb = np.zeros(m, dtype=complex)
     zb[:nb] = spec.raw[lo:hi]
     # Analytic band signal at base band on an m-point grid: z = (2/n) * m * ifft(...).
-    z = np.fft.ifft(zb) * (2.0 * m / spec.n)
-    e = z.real**2 + z.imag**2
+    z = scipy.fft.ifft(zb, workers=1, overwrite_x=True)
+    z *= 2.0 * m / spec.n
+    e = z.real**2
+    e += z.imag**2
     e -= e.mean()
-    w = 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(m) / m)
-    amp = np.abs(np.fft.rfft(e * w)[: kmax + 1]) * (4.0 / m)
+    e *= _periodic_hann(m)
+    amp = np.abs(scipy.fft.rfft(e, workers=1, overwrite_x=True)[: kmax + 1])
+    amp *= 4.0 / m
     return EnvelopeSpectrum(np.arange(kmax + 1) * spec.df, amp, band)
 
 
@@ -406,7 +483,7 @@ def _line_levels(
     offs = np.arange(-hmax, hmax + 1)
     idx = kc[:, None] + offs
     inside = (np.abs(offs)[None, :] <= half[:, None]) & (idx >= 0) & (idx < m)
-    peak = np.where(inside, amp[np.clip(idx, 0, m - 1)], -np.inf).max(axis=1)
+    peak = np.where(inside, amp[np.minimum(np.maximum(idx, 0), m - 1)], -np.inf).max(axis=1)
     # Floor: n_floor bins on each side, starting two bins beyond the search window.
     side = np.arange(n_floor)
     fidx = np.concatenate(
@@ -414,7 +491,7 @@ def _line_levels(
     )
     fvalid = (fidx >= 1) & (fidx < m)
     # Median of the valid floor bins per line: invalid ones sort last as +inf.
-    fvals = np.sort(np.where(fvalid, amp[np.clip(fidx, 0, m - 1)], np.inf), axis=1)
+    fvals = np.sort(np.where(fvalid, amp[np.minimum(np.maximum(fidx, 0), m - 1)], np.inf), axis=1)
     count = fvalid.sum(axis=1)
     rows = np.arange(kc.size)
     lo_i = np.maximum((count - 1) // 2, 0)
@@ -422,7 +499,7 @@ def _line_levels(
     floor = 0.5 * (fvals[rows, lo_i] + fvals[rows, hi_i])
     with np.errstate(all="ignore"):
         out = 20.0 * np.log10(peak / floor)
-    ok = (kc + half < m) & (kc - half >= 1) & (fvalid.sum(axis=1) >= n_floor) & (floor > 0)
+    ok = (kc + half < m) & (kc - half >= 1) & (count >= n_floor) & (floor > 0)
     return np.where(ok & np.isfinite(out), out, np.nan)
 
 

@@ -78,7 +78,7 @@ def pulsation_amplitude(x: npt.ArrayLike, fs: float, *, frequency_hz: float) -> 
 def _high_band_from_spectrum(
     spec: Spectrum, band: tuple[float, float], relative: bool
 ) -> FloatArray:
-    p = spec.one_sided_power()
+    p = spec._mean_square()
     inband = p[..., spec.band_slice(band)].sum(axis=-1)
     if not relative:
         return np.sqrt(inband)

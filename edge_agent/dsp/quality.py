@@ -7,6 +7,8 @@ linear interpolation), isolated one-sample spikes (replaced), DC offset and drif
 
 from __future__ import annotations
 
+import functools
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -14,6 +16,7 @@ from typing import Any, Literal
 import numpy as np
 import numpy.typing as npt
 
+from edge_agent.dsp._order_stats import median
 from edge_agent.dsp._validation import check_fs, check_positive
 
 __all__ = [
@@ -81,7 +84,9 @@ def _fill_gaps(x: FloatArray, missing: npt.NDArray[np.bool_]) -> FloatArray:
     return out
 
 
-def _remove_spikes(x: FloatArray, threshold: float) -> tuple[FloatArray, int]:
+def _remove_spikes(
+    x: FloatArray, threshold: float, peak: float | None = None
+) -> tuple[FloatArray, int]:
     """Replace isolated one-sample spikes by the mean of their two neighbours.
 
     The residual r[i] = x[i] - (x[i-1] + x[i+1]) / 2 of a single-sample spike of height s on a
@@ -89,13 +94,17 @@ def _remove_spikes(x: FloatArray, threshold: float) -> tuple[FloatArray, int]:
     ``threshold`` robust standard deviations (median absolute deviation) of r and both
     neighbours show the -s/2 pattern (opposite sign, 25 %..75 % of |r|). Oscillation near the
     Nyquist frequency gives neighbours of about the same size as the centre and is kept;
-    spikes two or more samples wide are not detected.
+    spikes two or more samples wide are not detected. ``peak`` is max|x| when the caller has it.
     """
-    r = x[1:-1] - 0.5 * (x[:-2] + x[2:])
+    r = x[:-2] + x[2:]
+    r *= 0.5
+    np.subtract(x[1:-1], r, out=r)
     # The residual of a smooth signal is centred on zero: its median absolute value is the MAD.
     abs_r = np.abs(r)
-    sigma = _MAD_TO_SIGMA * float(np.median(abs_r))
-    scale = max(float(np.max(np.abs(x))), 1.0) * np.finfo(float).eps * 64
+    sigma = _MAD_TO_SIGMA * median(abs_r)
+    if peak is None:
+        peak = float(np.max(np.abs(x)))
+    scale = max(peak, 1.0) * np.finfo(float).eps * 64
     cand = np.flatnonzero(abs_r > threshold * max(sigma, scale))
     cand = cand[(cand >= 1) & (cand <= r.size - 2)]
     if cand.size == 0:
@@ -121,7 +130,31 @@ def _detrend_mean(x: FloatArray, mean: float, slope: float, t: FloatArray) -> Fl
 
 
 def _detrend_linear(x: FloatArray, mean: float, slope: float, t: FloatArray) -> FloatArray:
-    return x - mean - slope * t
+    out = x - mean
+    out -= slope * t
+    return out
+
+
+def _std_exceeds(arr: FloatArray, hi: float, lo: float, limit: float) -> bool:
+    """``float(arr.std()) > limit`` for finite samples with maximum ``hi`` and minimum ``lo``.
+
+    Any window has std >= (hi - lo) / sqrt(2 n) (at best one sample at each extreme, the rest
+    at the mean), and the computed two-pass std does not fall below the true one by more than
+    a few rounding errors: squared deviations about any centre, such as the rounded mean, sum
+    to at least those about the exact mean. So when the range exceeds twice that bound (and is
+    far above underflow) the answer is known without the two passes.
+    """
+    if limit > 0.0 and hi - lo > max(2.0 * math.sqrt(2.0 * arr.size) * limit, 1e-100):
+        return True
+    return float(arr.std()) > limit
+
+
+@functools.lru_cache(maxsize=16)
+def _centred_time(n: int, fs: float) -> tuple[FloatArray, np.float64]:
+    """Sample times about the window's centre, s (read-only), and their sum of squares."""
+    t: FloatArray = (np.arange(n) - 0.5 * (n - 1)) / fs
+    t.flags.writeable = False
+    return t, np.einsum("i,i->", t, t)
 
 
 _DETRENDERS: dict[str, Callable[[FloatArray, float, float, FloatArray], FloatArray]] = {
@@ -242,14 +275,15 @@ def clean_window(
 
     n = arr.size
     flags: set[str] = set()
-    missing = ~np.isfinite(arr)
-    n_missing = int(missing.sum())
+    finite = np.isfinite(arr)
+    n_missing = n - int(np.count_nonzero(finite))
     dropout_fraction = n_missing / n
     if n_missing == n:
         result = QualityResult(frozenset({"dropout", "flatline"}), 0, 1.0, False)
         return np.full(n, np.nan), result
     usable = True
     if n_missing:
+        missing = ~finite
         flags.add("dropout")
         if dropout_fraction > max_dropout_fraction or _longest_run(missing) > max_gap_s * fs:
             usable = False
@@ -257,19 +291,20 @@ def clean_window(
 
     n_spikes = 0
     hi, lo = float(arr.max()), float(arr.min())
-    std = float(arr.std())
-    same = np.diff(arr) == 0.0
-    if check_flatline and (std <= flatline_std or _longest_run(same) + 1 >= flatline_run_s * fs):
+    same = arr[1:] == arr[:-1]  # finite samples: equal exactly when their difference is 0
+    if check_flatline and (
+        not _std_exceeds(arr, hi, lo, flatline_std) or _longest_run(same) + 1 >= flatline_run_s * fs
+    ):
         flags.add("flatline")
         usable = False
     else:
-        if full_scale is not None and np.abs(arr).max() >= 0.999 * full_scale:
+        if full_scale is not None and max(hi, -lo) >= 0.999 * full_scale:
             flags.add("clipped")
-        arr, n_spikes = _remove_spikes(arr, float(spike_threshold))
+        arr, n_spikes = _remove_spikes(arr, float(spike_threshold), max(hi, -lo))
         if n_spikes:
             flags.add("spikes_removed")
             hi, lo = float(arr.max()), float(arr.min())
-            same = np.diff(arr) == 0.0
+            same = arr[1:] == arr[:-1]
         # Rails are judged after spike removal: a spike must not hide a clipped plateau.
         # A constant window (allowed when check_flatline is False) has no rails.
         tol = 1e-9 * (hi - lo) if hi > lo else -1.0
@@ -278,11 +313,11 @@ def clean_window(
         if _longest_run(rail[1:] & rail[:-1] & same) + 1 >= clip_run:
             flags.add("clipped")
 
-    t = (np.arange(n) - 0.5 * (n - 1)) / fs
+    t, tt = _centred_time(n, fs)
     mean = float(arr.mean())
     # Least-squares slope, unit of x per second. einsum, not np.dot: BLAS threads would
     # contend with the gateway's other work (see edge_agent.dsp docs).
-    slope = float(np.einsum("i,i->", t, arr) / np.einsum("i,i->", t, t))
+    slope = float(np.einsum("i,i->", t, arr) / tt)
     if dc_limit is not None and abs(mean) > dc_limit:
         flags.add("dc_offset")
     if drift_limit is not None and abs(slope) * n / fs > drift_limit:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from typing import Any, Literal
 
 import numpy as np
@@ -36,13 +37,21 @@ _ISO_10816_3: dict[tuple[int, str], tuple[float, float, float]] = {
 }
 
 
+@functools.lru_cache(maxsize=16)
+def _velocity_weights(n: int, fs: float, start: int, stop: int) -> FloatArray:
+    """Squared g-to-mm/s integration weight of bins ``start:stop`` (start >= 1), read-only."""
+    f = np.arange(start, stop) * (fs / n)
+    # Velocity amplitude = acceleration amplitude / (2 pi f); g -> m/s² -> mm/s.
+    w: FloatArray = (STANDARD_GRAVITY * 1000.0 / (2.0 * np.pi * f)) ** 2
+    w.flags.writeable = False
+    return w
+
+
 def _velocity_rms_from_spectrum(spec: Spectrum, band: tuple[float, float]) -> FloatArray:
     sl = spec.band_slice(band)
-    f = spec.freqs[sl]
-    keep = f > 0
-    p = spec.one_sided_power()[..., sl][..., keep]
-    # Velocity amplitude = acceleration amplitude / (2 pi f); g -> m/s² -> mm/s.
-    w = (STANDARD_GRAVITY * 1000.0 / (2.0 * np.pi * f[keep])) ** 2
+    start = max(sl.start, 1)  # bins with f > 0
+    p = spec._mean_square()[..., start : sl.stop]
+    w = _velocity_weights(spec.n, spec.fs, start, max(sl.stop, start))
     return np.sqrt(np.einsum("...i,i->...", p, w))
 
 

@@ -6,17 +6,20 @@ the public ``x, fs`` functions are thin wrappers that validate and build the spe
 
 The Hann-windowed spectrum is obtained from the rectangular one in the frequency domain: for the
 periodic Hann window w[n] = 0.5 - 0.5 cos(2 pi n / N), X_w[k] = X[k]/2 - (X[k-1] + X[k+1])/4,
-which saves a second FFT.
+which saves a second FFT. Each output bin depends on three input bins only, so the cores that
+read a few low bins (tones, shaft speed, peaks in the velocity band) compute just those bins;
+the whole Hann spectrum is built on first access to :attr:`Spectrum.hann`.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+import scipy.fft
 import scipy.signal
 
 from edge_agent.dsp._validation import as_signal, check_band, check_fs
@@ -49,13 +52,31 @@ class Spectrum:
     raw : ndarray of complex, shape (..., n // 2 + 1)
         ``numpy.fft.rfft(x)`` (rectangular window): used for powers (Parseval holds exactly).
     hann : ndarray of complex, shape (..., n // 2 + 1)
-        ``numpy.fft.rfft(x * w)`` with the periodic Hann window ``w``: used for peaks.
+        ``numpy.fft.rfft(x * w)`` with the periodic Hann window ``w``: used for peaks. Computed
+        from ``raw`` on first access, read-only.
     """
 
     fs: float
     n: int
     raw: ComplexArray
-    hann: ComplexArray
+    _hann: ComplexArray | None = field(default=None, init=False, repr=False)
+    _power: FloatArray | None = field(default=None, init=False, repr=False)
+
+    @property
+    def hann(self) -> ComplexArray:
+        """Hann-windowed spectrum, shape (..., n // 2 + 1), read-only."""
+        h = self._hann
+        if h is None:
+            h = _hann_bins(self.raw, self.n, 0, self.raw.shape[-1])
+            h.flags.writeable = False
+            object.__setattr__(self, "_hann", h)
+        return h
+
+    def _hann_slice(self, start: int, stop: int) -> ComplexArray:
+        """Bins ``start:stop`` of :attr:`hann` without building the rest (same values)."""
+        if self._hann is not None:
+            return self._hann[..., start:stop]
+        return _hann_bins(self.raw, self.n, start, stop)
 
     @property
     def df(self) -> float:
@@ -69,10 +90,21 @@ class Spectrum:
 
     def one_sided_power(self) -> FloatArray:
         """Mean-square contribution of each bin (unit of x squared); sums to mean(x**2)."""
-        p = (self.raw.real**2 + self.raw.imag**2) * (2.0 / self.n**2)
-        p[..., 0] *= 0.5
-        if self.n % 2 == 0:
-            p[..., -1] *= 0.5
+        return self._mean_square().copy()
+
+    def _mean_square(self) -> FloatArray:
+        """:meth:`one_sided_power`, computed once per spectrum and shared (read-only)."""
+        p = self._power
+        if p is None:
+            raw = self.raw
+            p = raw.real**2
+            p += raw.imag**2
+            p *= 2.0 / self.n**2
+            p[..., 0] *= 0.5
+            if self.n % 2 == 0:
+                p[..., -1] *= 0.5
+            p.flags.writeable = False
+            object.__setattr__(self, "_power", p)
         return p
 
     def band_slice(self, band: tuple[float, float]) -> slice:
@@ -82,20 +114,33 @@ class Spectrum:
         return slice(max(lo, 0), min(hi, self.raw.shape[-1] - 1) + 1)
 
 
-def _hann_from_raw(raw: ComplexArray, n: int) -> ComplexArray:
+def _hann_bins(raw: ComplexArray, n: int, start: int, stop: int) -> ComplexArray:
+    """Bins ``start:stop`` of the Hann-windowed spectrum from the rectangular one."""
     m = raw.shape[-1]
-    ext: ComplexArray = np.empty((*raw.shape[:-1], m + 2), dtype=np.complex128)
-    ext[..., 1:-1] = raw
-    ext[..., 0] = np.conj(raw[..., 1]) if m > 1 else raw[..., 0]
-    # Bin m (one past the last rfft bin) mirrors bin n - m.
-    ext[..., -1] = np.conj(raw[..., n - m]) if 0 <= n - m < m else 0.0
+    start, stop = max(start, 0), min(stop, m)
+    if stop <= start:
+        return np.empty((*raw.shape[:-1], 0), dtype=np.complex128)
+    # ext[j] holds bin start - 1 + j, with the two bins beyond the ends mirrored.
+    ext: ComplexArray = np.empty((*raw.shape[:-1], stop - start + 2), dtype=np.complex128)
+    lo, hi = max(start - 1, 0), min(stop + 1, m)
+    ext[..., lo - start + 1 : hi - start + 1] = raw[..., lo:hi]
+    if start == 0:
+        ext[..., 0] = np.conj(raw[..., 1]) if m > 1 else raw[..., 0]
+    if stop == m:
+        # Bin m (one past the last rfft bin) mirrors bin n - m.
+        ext[..., -1] = np.conj(raw[..., n - m]) if 0 <= n - m < m else 0.0
     out: ComplexArray = 0.5 * ext[..., 1:-1] - 0.25 * (ext[..., :-2] + ext[..., 2:])
     return out
 
 
+def _hann_from_raw(raw: ComplexArray, n: int) -> ComplexArray:
+    return _hann_bins(raw, n, 0, raw.shape[-1])
+
+
 def _spectrum(a: FloatArray, fs: float) -> Spectrum:
-    raw = np.fft.rfft(a, axis=-1)
-    return Spectrum(fs=fs, n=a.shape[-1], raw=raw, hann=_hann_from_raw(raw, a.shape[-1]))
+    # scipy.fft's pocketfft gives the same bits as numpy.fft with less call overhead.
+    raw = scipy.fft.rfft(a, axis=-1, workers=1)
+    return Spectrum(fs=fs, n=a.shape[-1], raw=raw)
 
 
 def compute_spectrum(x: npt.ArrayLike, fs: float, *, axis: int = -1) -> Spectrum:
@@ -199,7 +244,7 @@ def _check_bands(bands: Sequence[tuple[float, float]], fs: float) -> list[tuple[
 def _band_energies_from_spectrum(
     spec: Spectrum, bands: Sequence[tuple[float, float]]
 ) -> FloatArray:
-    p = spec.one_sided_power()
+    p = spec._mean_square()
     return np.stack([p[..., spec.band_slice(b)].sum(axis=-1) for b in bands], axis=-1)
 
 
@@ -246,7 +291,7 @@ def band_energies(
 
 def _centroid_from_spectrum(spec: Spectrum, band: tuple[float, float] | None) -> FloatArray:
     sl = spec.band_slice(band) if band is not None else slice(None)
-    p = spec.one_sided_power()[..., sl]
+    p = spec._mean_square()[..., sl]
     f = spec.freqs[sl]
     total = p.sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -274,7 +319,7 @@ def spectral_centroid(
 
 def _entropy_from_spectrum(spec: Spectrum, band: tuple[float, float] | None) -> FloatArray:
     sl = spec.band_slice(band) if band is not None else slice(None)
-    p = spec.one_sided_power()[..., sl]
+    p = spec._mean_square()[..., sl]
     k = p.shape[-1]
     total = p.sum(axis=-1, keepdims=True)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -326,15 +371,20 @@ class Peaks:
     amplitudes: FloatArray
 
 
-def _interpolate_bins(mag: FloatArray, k: npt.NDArray[np.intp], df: float, n: int) -> Peaks:
+def _interpolate_bins(
+    mag: FloatArray, k: npt.NDArray[np.intp], df: float, n: int, offset: int = 0
+) -> Peaks:
     """Three-bin interpolation of Hann-spectrum peaks at bins ``k`` (1-D magnitudes).
+
+    ``mag[j]`` holds bin ``offset + j`` (``offset`` > 0 when only part of the spectrum is given).
 
     For one tone at ``k + delta`` the periodic Hann window gives magnitudes a(k+j) proportional
     to 1/((j - delta)((j - delta)² - 1)) up to a common factor, from which
     delta = 2 (a+ - a-) / (a- + 2 a0 + a+) holds exactly; the amplitude follows from the
     window's response sinc(delta) / (1 - delta²).
     """
-    am, a0, ap = mag[k - 1], mag[k], mag[k + 1]
+    j = k - offset
+    am, a0, ap = mag[j - 1], mag[j], mag[j + 1]
     den = am + 2.0 * a0 + ap
     with np.errstate(invalid="ignore", divide="ignore"):
         delta = np.where(den > 0, 2.0 * (ap - am) / np.where(den > 0, den, 1.0), 0.0)
@@ -347,21 +397,23 @@ def _interpolate_bins(mag: FloatArray, k: npt.NDArray[np.intp], df: float, n: in
 def _dominant_peaks_from_spectrum(
     spec: Spectrum, n_peaks: int, band: tuple[float, float] | None
 ) -> Peaks:
-    mag = np.abs(spec.hann)
-    sl = spec.band_slice(band) if band is not None else slice(0, mag.size)
+    m = spec.raw.shape[-1]
+    sl = spec.band_slice(band) if band is not None else slice(0, m)
     start = max(sl.start or 0, 1)
-    stop = min(sl.stop if sl.stop is not None else mag.size, mag.size - 1)
+    stop = min(sl.stop if sl.stop is not None else m, m - 1)
     if stop <= start:
         empty = np.empty(0)
         return Peaks(empty, empty)
-    k = np.arange(start, stop)
-    mid = mag[start:stop]
-    is_peak = (mid > mag[start - 1 : stop - 1]) & (mid >= mag[start + 1 : stop + 1])
-    k = k[is_peak]
-    if k.size > n_peaks:
-        k = k[np.argpartition(mag[k], -n_peaks)[-n_peaks:]]
-    k = k[np.argsort(mag[k])[::-1]]
-    return _interpolate_bins(mag, k, spec.df, spec.n)
+    # Magnitudes of bins start - 1 .. stop only: mag[j] is bin start - 1 + j.
+    off = start - 1
+    mag = np.abs(spec._hann_slice(off, stop + 1))
+    mid = mag[1:-1]
+    is_peak = (mid > mag[:-2]) & (mid >= mag[2:])
+    j = np.flatnonzero(is_peak) + 1
+    if j.size > n_peaks:
+        j = j[np.argpartition(mag[j], -n_peaks)[-n_peaks:]]
+    j = j[np.argsort(mag[j])[::-1]]
+    return _interpolate_bins(mag, j + off, spec.df, spec.n, off)
 
 
 def dominant_peaks(
@@ -423,15 +475,18 @@ def _tone_rms_from_spectrum(
     NaN for a frequency outside 0..fs/2.
     """
     f = np.atleast_1d(np.asarray(freqs_hz, dtype=float))
-    m = spec.hann.shape[-1]
+    m = spec.raw.shape[-1]
     k0 = np.rint(f / spec.df)
     valid = np.isfinite(k0) & (k0 >= 0) & (k0 <= m - 1)
     k0i = np.where(valid, k0, 0).astype(np.intp)
-    idx = np.clip(k0i[:, None] + np.arange(-half_width_bins, half_width_bins + 1), 0, m - 1)
+    idx = k0i[:, None] + np.arange(-half_width_bins, half_width_bins + 1)
+    idx = np.minimum(np.maximum(idx, 0), m - 1)
     # Clipped duplicates at the edges would double-count; keep each bin once per tone.
     dup = np.zeros(idx.shape, dtype=bool)
     dup[:, 1:] = idx[:, 1:] == idx[:, :-1]
-    pw = spec.hann.real[idx] ** 2 + spec.hann.imag[idx] ** 2
+    lo = int(idx.min()) if idx.size else 0
+    h = spec._hann_slice(lo, int(idx.max()) + 1 if idx.size else 0)[idx - lo]
+    pw = h.real**2 + h.imag**2
     total = np.where(dup, 0.0, pw).sum(axis=1)
     # Periodic Hann: sum(w**2) = 3n/8; r.m.s. = sqrt(2 sum|X_w|² / (n sum w²)).
     out = np.sqrt(total * (16.0 / 3.0)) / spec.n

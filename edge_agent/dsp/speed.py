@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from edge_agent.dsp._order_stats import median
 from edge_agent.dsp._validation import as_signal, check_band, check_fs, check_positive
 from edge_agent.dsp.severity import STANDARD_GRAVITY
 from edge_agent.dsp.spectral import (
@@ -108,23 +109,24 @@ def _speed_from_spectrum(
     harmonics: int,
     min_prominence: float,
 ) -> float | None:
-    mag = np.abs(spec.hann)
-    m = mag.size
+    m = spec.raw.shape[-1]
     klo = max(int(np.floor(search_hz[0] / spec.df)), 1)
     khi = int(np.ceil(search_hz[1] / spec.df))
     hmax = min(harmonics, (m - 2) // max(khi, 1))
     if hmax < 1 or khi < klo:
         return None
+    pad = max(_FLOOR_BINS, khi - klo)
+    # Only the bins up to the highest harmonic's floor (and the refinement beside it) are read.
+    mag = np.abs(spec._hann_slice(0, min(m, hmax * khi + pad + 3)))
     k = np.arange(klo, khi + 1)
     h = np.arange(1, hmax + 1)[:, None]
     # Each harmonic's magnitude near h*k (+-1 bin) over the median magnitude of a wider
     # neighbourhood of that harmonic's search band (its local floor).
     hk = h * k
     near = np.maximum(np.maximum(mag[hk - 1], mag[hk]), mag[np.minimum(hk + 1, m - 1)])
-    pad = max(_FLOOR_BINS, khi - klo)
     lo_f = np.maximum(h[:, 0] * klo - pad, 1)
     hi_f = np.minimum(h[:, 0] * khi + pad, m - 1)
-    floor = np.array([np.median(mag[a : b + 1]) for a, b in zip(lo_f, hi_f, strict=True)])
+    floor = np.array([median(mag[a : b + 1]) for a, b in zip(lo_f, hi_f, strict=True)])
     norm = near / np.where(floor > 0, floor, np.inf)[:, None]
     score = norm.sum(axis=0)
     best = int(np.argmax(score))
