@@ -63,6 +63,7 @@ __all__ = [
 
 FAULT_KINDS = ("broker", "service", "postgres", "gateway", "link")
 _POLL_S = 0.25
+_LOST_AFTER_S = 30.0  # store unchanged this long with every outbox empty: the rest is lost
 _MAX_UNPROMPTED = 10  # a gateway that stops this often by itself is broken, not unlucky
 
 
@@ -87,6 +88,12 @@ class ChaosOptions:
         ends with a clean drain (the count then shows what the faults did).
     settle_s : float
         Hang guard for the final settling (every message stored, every alert delivered).
+    broker_fault : {"kill", "stop"}
+        How the broker goes down. ``"kill"``: SIGKILL, as a crash. Mosquitto 2.0 keeps its
+        state in memory and saves it as snapshots, so a crash can lose messages it has already
+        acknowledged to a gateway but not yet handed to the service: the gateway has let them
+        go and nothing sends them again (the losses figure then says how many). ``"stop"``:
+        SIGTERM, as a restart or an orderly shutdown; Mosquitto saves its state on the way out.
     """
 
     days: float = 12.0
@@ -98,6 +105,7 @@ class ChaosOptions:
     outage_s: tuple[float, float] = (0.5, 4.0)
     calm_after: float = 0.92
     settle_s: float = 600.0
+    broker_fault: str = "kill"
     workdir: Path | None = None
 
     def validate(self) -> None:
@@ -107,6 +115,8 @@ class ChaosOptions:
                 raise ChaosError(f"{name} must be a range 0 < low <= high, got {(lo, hi)!r}")
         if not 0 < self.calm_after <= 1:
             raise ChaosError(f"calm_after must be in (0, 1], got {self.calm_after!r}")
+        if self.broker_fault not in ("kill", "stop"):
+            raise ChaosError(f"broker_fault must be 'kill' or 'stop', got {self.broker_fault!r}")
 
 
 @dataclass
@@ -431,7 +441,10 @@ class ChaosRun:
         if kind == "broker":
             broker = self.engine.broker
             assert isinstance(broker, MosquittoBroker)
-            broker.kill()
+            if self.options.broker_fault == "kill":
+                broker.kill()
+            else:
+                broker.stop()
         elif kind == "service":
             _kill_group(self.engine.service_proc)
         elif kind == "postgres":
@@ -543,14 +556,32 @@ class ChaosRun:
         """Everything stored and every alert delivered, or the hang guard ran out."""
         assert self.engine is not None
         deadline = time.monotonic() + self.options.settle_s
+        stored, still_since = -1, time.monotonic()
         while time.monotonic() < deadline:
             self._supervise()
             self.engine._poll()
             self._report("settling")
-            if self.engine.service_ready() and all(
-                g.progress.pending == 0 and g.progress.stored >= g.progress.queued
-                for g in self.engine.gateways
+            ready = self.engine.service_ready()
+            gateways = self.engine.gateways
+            if ready and all(
+                g.progress.pending == 0 and g.progress.stored >= g.progress.queued for g in gateways
             ):
+                break
+            now_stored = sum(g.progress.stored for g in gateways)
+            if now_stored != stored:
+                stored, still_since = now_stored, time.monotonic()
+            elif (
+                ready
+                and all(g.progress.pending == 0 for g in gateways)
+                and time.monotonic() - still_since > _LOST_AFTER_S
+            ):
+                # every outbox is empty and the store has not moved: what is missing was let go
+                # by its gateway and will not come; count it as lost
+                missing = sum(max(g.progress.queued - g.progress.stored, 0) for g in gateways)
+                self.notes.append(
+                    f"{missing} messages let go by their gateways never reached the store "
+                    f"(every outbox empty, the store unchanged for {_LOST_AFTER_S:g} s)"
+                )
                 break
             time.sleep(_POLL_S)
         else:

@@ -21,7 +21,10 @@ from wellspan.postgres import postgres_bin_dir
 
 pytestmark = [pytest.mark.slow, pytest.mark.broker, pytest.mark.postgres]
 
-SHORT = ChaosOptions(days=10.0, every_hours=2.0, minutes=1.2, seed=8)
+# The broker is stopped (SIGTERM) here, not killed: Mosquitto 2.0 saves its state as periodic
+# snapshots, so a crash can lose messages it has acknowledged to a gateway but not yet handed on
+# (see ChaosOptions.broker_fault). The long run (wellspan bench chaos) kills it and reports it.
+SHORT = ChaosOptions(days=10.0, every_hours=2.0, minutes=1.2, seed=8, broker_fault="stop")
 
 
 @pytest.fixture(scope="module")
@@ -30,7 +33,7 @@ def chaos(tmp_path_factory: pytest.TempPathFactory) -> Iterator[ChaosResult]:
     require_tool(postgres_bin_dir() is not None, "PostgreSQL server binaries not installed")
     options = ChaosOptions(
         days=SHORT.days, every_hours=SHORT.every_hours, minutes=SHORT.minutes, seed=SHORT.seed,
-        workdir=tmp_path_factory.mktemp("chaos"),
+        broker_fault=SHORT.broker_fault, workdir=tmp_path_factory.mktemp("chaos"),
     )  # fmt: skip
     result = ChaosRun(options).run()
     print(result.summary())
@@ -91,6 +94,7 @@ def test_the_summary_prints_the_figures(chaos: ChaosResult) -> None:
         (ChaosOptions(gap_s=(0.0, 1.0)), "gap_s"),
         (ChaosOptions(outage_s=(3.0, 1.0)), "outage_s"),
         (ChaosOptions(calm_after=1.5), "calm_after"),
+        (ChaosOptions(broker_fault="pull the plug"), "broker_fault"),
     ],
 )
 def test_bad_options_are_refused_in_plain_words(options: ChaosOptions, message: str) -> None:
