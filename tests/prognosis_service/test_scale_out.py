@@ -99,6 +99,27 @@ def _spawn(
     )
 
 
+def _tear_down(
+    publisher: mqtt.Client, procs: dict[str, subprocess.Popen[bytes]], store: Store
+) -> None:
+    publisher.disconnect()
+    publisher.loop_stop()
+    for proc in procs.values():
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    store.dispose()
+
+
+def _assert_both_took_a_share(logs: dict[str, Path]) -> None:
+    batches = {}
+    for name, log in logs.items():
+        m = re.search(rb"ingest stopped after (\d+) batches", log.read_bytes())
+        assert m is not None, log.read_text()
+        batches[name] = int(m.group(1))
+    assert all(n > 0 for n in batches.values()), batches
+
+
 def _stored(store: Store) -> int:
     with store.read() as s:
         return int(s.scalar(select(func.count()).select_from(MessageRow)) or 0)
@@ -172,20 +193,9 @@ def test_two_ingest_processes_on_a_shared_subscription_store_each_message_once(
             assert asset == _asset(gw, seq % ASSETS_PER_GATEWAY)
             assert window_start == f.T0 + timedelta(minutes=10 * seq)
             assert np.frombuffer(blob, dtype="<f4").tolist() == list(sent.values)
-        batches = {}
-        for name, log in logs.items():
-            m = re.search(rb"ingest stopped after (\d+) batches", log.read_bytes())
-            assert m is not None, log.read_text()
-            batches[name] = int(m.group(1))
-        assert all(n > 0 for n in batches.values()), batches  # both consumers took a share
+        _assert_both_took_a_share(logs)
     finally:
-        publisher.disconnect()
-        publisher.loop_stop()
-        for proc in procs.values():
-            if proc.poll() is None:
-                proc.kill()
-                proc.wait()
-        store.dispose()
+        _tear_down(publisher, procs, store)
 
 
 # -- fits: two consumers, out of order, against one consumer in order -------------------------
@@ -354,17 +364,8 @@ def test_fits_from_two_consumers_equal_a_single_consumer_run(
         assert _stored(store) == total
         got = _fits(store)
     finally:
-        publisher.disconnect()
-        publisher.loop_stop()
-        for proc in procs.values():
-            if proc.poll() is None:
-                proc.kill()
-                proc.wait()
-        store.dispose()
-    batches = [
-        re.search(rb"ingest stopped after (\d+) batches", p.read_bytes()) for p in logs.values()
-    ]
-    assert all(m is not None and int(m.group(1)) > 0 for m in batches)  # both took a share
+        _tear_down(publisher, procs, store)
+    _assert_both_took_a_share(logs)
     assert sorted(got) == sorted(expected)
     for asset in assets:
         for key in ("status", "message", "state", "points", "result"):
