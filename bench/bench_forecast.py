@@ -39,9 +39,12 @@ Fleets
     (unit-to-unit variation of the parameters, Brownian error, hourly paths observed daily; the
     end of life is the first hourly crossing of the threshold). (b) ``simulated pumps``: outer-race
     bearing defects on simulated Saltbush Flats pumps (the pump simulator + extractor), the
-    health indicator being the daily median of ``de_accel.rms`` over its healthy level; the end of
-    life is the simulator's failure time and the threshold the training units' median health
-    indicator on their last day. ``tP`` is the fault onset (known in the simulation).
+    health indicator being the daily median of ``de_accel.high_band_rms`` over its healthy level
+    (the indicator the service's bearing health index follows; broadband ``de_accel.rms`` gave
+    α-λ 8 % at worst λ and P10–P90 coverage 54 % in the full run, the high band 21 % and 74 %);
+    the end of life is the simulator's failure time and the threshold the training units'
+    median health indicator on their last day. ``tP`` is the fault onset (known in the
+    simulation).
 
 Cost
     Refit per message: ``select_model`` (two candidates) on 180 daily points, and on 4,320 hourly
@@ -206,7 +209,7 @@ def simulated_pump_fleet(
     seed: int = 7,
     report: Callable[[int, int], None] | None = None,
 ) -> Fleet:
-    """Outer-race defects on simulated pumps; health indicator ``de_accel.rms`` / healthy level."""
+    """Outer-race defects on simulated pumps; ``de_accel.high_band_rms`` over its healthy level."""
     from bench._pumps import simulate_indicators
     from edge_agent.simulator import (
         DEMO_START,
@@ -233,9 +236,9 @@ def simulated_pump_fleet(
             times,
             seed=1000 + i,
             channels=("de_accel",),
-            indicators=["de_accel.rms"],
+            indicators=["de_accel.high_band_rms"],
         )
-        rms = series.column("de_accel.rms")
+        rms = series.column("de_accel.high_band_rms")
         hours = np.array([(t - onset) / timedelta(hours=1) for t in times])
         healthy = float(np.nanmedian(rms[hours < 0]))
         day = np.floor(hours / DAY_H).astype(int)
@@ -251,7 +254,8 @@ def simulated_pump_fleet(
         name="simulated pumps",
         description=(
             f"{n_train} training + {n_test} test outer-race defects on simulated pumps, "
-            f"median life 90 d; daily median of {windows_per_day} windows of de_accel.rms "
+            f"median life 90 d; daily median of {windows_per_day} windows of "
+            "de_accel.high_band_rms "
             f"over the healthy level; threshold {threshold:.2f} (training units' median on "
             "their last day)"
         ),

@@ -5,8 +5,16 @@ view, re-assessed as the windows arrive. Forecasts are judged with α-λ accurac
 λ = 0.5 … 0.9; Saxena, Celaya, Saha, Saha & Goebel, "Metrics for offline evaluation of
 prognostic performance", IJPHM 1 (2010)) and P10–P90 coverage of the true remaining life (about
 0.8 if calibrated). The truth is the simulator's failure time (severity 1). Invented data: the
-numbers measure this chain on our simulated fleet and are printed; the assertions are only loose
-bounds that a broken chain would miss (see the report for the measured values).
+numbers measure this chain on our simulated fleet and are printed, per unit and λ as well; the
+assertions are bounds the chain meets with a margin (measured values beside them).
+
+What limits the accuracy here: the bearing health index stands at a different level at failure
+for each defect type (mean 1.15 for outer race, 0.91 inner race, 0.83 rolling element over 16
+simulated pumps) and, within a type, from unit to unit (SD 0.04-0.09, 1-2 days of the index's
+rise). Without recorded failures the threshold is the severity class's 1 for all of them, so
+forecasts are early or late by type; with them it is learned per recorded failure mode, and its
+spread widens the intervals. The unit-to-unit part is left, and at λ = 0.8-0.9, where the ±20 %
+band is a few hours wide, it fails most forecasts whatever the model.
 """
 
 from __future__ import annotations
@@ -93,12 +101,18 @@ class Measured:
     n_intervals: int
     diagnosis_right: float
     priors: list[str]
+    table: list[str]  # one line per unit and lambda, for the printout
+
+
+def _h(x: float | None) -> str:
+    return "-" if x is None else f"{x:.0f}"
 
 
 def _judge(store: Store) -> Measured:
     clf = load_classifier()
     passes, lower, upper, truth, right = [], [], [], [], []
     priors: set[str] = set()
+    table: list[str] = []
     for case in JUDGED:
         asset_id, fault, onset, *_, seed = case
         scenario, eol_h = _run(case)
@@ -125,6 +139,14 @@ def _judge(store: Store) -> Measured:
             if out.model is not None:
                 priors.add(out.model.prior)
             right.append(out.diagnosis is not None and out.diagnosis.fault == fault)
+            table.append(
+                f"  {asset_id} {fault:15s} lambda {lam}: true RUL {eol_h - observed_h:4.0f} h, "
+                f"P10/P50/P90 {'-' if f is None else _h(f.p10_h)}/"
+                f"{'-' if f is None else _h(f.p50_h)}/{'-' if f is None else _h(f.p90_h)} h, "
+                f"health index {out.health_index or math.nan:.2f} of threshold "
+                f"{out.failure_threshold or math.nan:.2f}, "
+                f"{'-' if out.model is None else out.model.name + ' ' + out.model.prior}"
+            )
         finite = [m if math.isfinite(m) else 1e9 for m in median]
         passes.append(
             alpha_lambda_accuracy(
@@ -137,6 +159,7 @@ def _judge(store: Store) -> Measured:
         n_intervals=len(truth),
         diagnosis_right=float(np.mean(right)),
         priors=sorted(priors),
+        table=table,
     )
 
 
@@ -162,16 +185,19 @@ def test_forecasts_through_the_whole_chain(tmp_path: Path) -> None:
             f"P10-P90 coverage {r.coverage:.2f} over {r.n_intervals} intervals; "
             f"diagnosis right {r.diagnosis_right:.2f}; priors {r.priors}"
         )
+        print("\n".join(r.table))
     assert learned.priors == ["fleet"]
     assert default.priors == ["default"]
     for r in (default, learned):
         assert r.n_intervals >= 0.75 * len(JUDGED) * len(LAMBDAS)  # forecasts are made
         assert r.diagnosis_right >= 0.75
-    # Loose, honest bounds (measured on this fleet: coverage 0.55-0.65 of 20 intervals, alpha-
-    # lambda mean 0.10 with default priors and 0.45 once three failures are recorded): the
-    # intervals cover the truth at least 40 % of the time, some forecasts are within ±20 %, and
-    # the fleet's recorded failures do not make the forecasts worse.
-    for r in (default, learned):
-        assert r.coverage >= 0.4
-    assert np.mean(learned.alpha_lambda) > 0.1
-    assert np.mean(learned.alpha_lambda) >= np.mean(default.alpha_lambda)
+    # Measured on this fleet (20 intervals each): default prior and threshold 1, alpha-lambda
+    # [0.0, 0.0, 0.25, 0.25, 0.0] (mean 0.10), coverage 0.65; with the three recorded failures
+    # (threshold per failure mode, its spread, fleet prior), [0.75, 0.75, 0.5, 0.25, 0.25] (mean
+    # 0.50), coverage 1.00. The learned intervals over-cover: one failure per mode gives no
+    # within-mode spread, so the class's spread (SD 0.19) bounds it. Bounds with a margin:
+    assert default.coverage >= 0.4
+    assert learned.coverage >= 0.75
+    assert np.mean(learned.alpha_lambda) >= 0.35
+    assert learned.alpha_lambda[0] >= 0.5  # lambda = 0.5: most units within ±20 %
+    assert np.mean(learned.alpha_lambda) >= np.mean(default.alpha_lambda) + 0.2
