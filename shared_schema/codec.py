@@ -37,6 +37,7 @@ import struct
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
+from itertools import repeat
 from typing import Any, TypeVar
 from uuid import UUID
 
@@ -894,11 +895,11 @@ def from_readable(data: bytes | str | Mapping[str, Any], layouts: LayoutLookup) 
     if (  # the usual case, checked in bulk: every indicator in layout order, units right
         len(indicators) == len(codec.names)
         and set(map(type, indicators)) <= {dict}
-        and [item.get("name") for item in indicators] == codec.name_list
-        and [item.get("unit", u) for item, u in zip(indicators, codec.unit_list, strict=True)]
-        == codec.unit_list
+        # map over dict.get rather than comprehensions: half the time for 24 indicators
+        and list(map(_get, indicators, repeat("name"))) == codec.name_list
+        and list(map(_get, indicators, repeat("unit"), codec.unit_list)) == codec.unit_list
     ):
-        body["values"] = [item.get("value") for item in indicators]
+        body["values"] = list(map(_get, indicators, repeat("value")))
     else:
         body["values"] = _values_by_name(indicators, codec, digest)
     try:
@@ -908,6 +909,9 @@ def from_readable(data: bytes | str | Mapping[str, Any], layouts: LayoutLookup) 
     if _has_non_finite(body):
         raise DecodeError(DecodeReason.NON_FINITE, "JSON carries NaN or infinite numbers")
     return _validated(IndicatorMessage, body)
+
+
+_get = dict.get
 
 
 def _values_by_name(indicators: list[Any], codec: _LayoutCodec, digest: str) -> list[Any]:

@@ -14,6 +14,7 @@ from prognosis_service.domain.http_ingest import (
     PayloadTooLargeError,
     check_idempotency_key,
     decode_batch,
+    gc_paused,
     ingest_batch,
     parse_batch,
 )
@@ -44,13 +45,14 @@ async def post_indicators(
 
     def work() -> tuple[dict[str, object], bool]:
         check_idempotency_key(idempotency_key)
-        batch = parse_batch(body, principal)
-        with runtime.store.read() as session:  # decoding outside the write lock
-            decode_batch(session, runtime.pipeline, batch)
-        with runtime.store.write() as session:
-            result, outcome = ingest_batch(
-                session, runtime.pipeline, principal, batch, idempotency_key=idempotency_key
-            )
+        with gc_paused():
+            batch = parse_batch(body, principal)
+            with runtime.store.read() as session:  # decoding outside the write lock
+                decode_batch(session, runtime.pipeline, batch)
+            with runtime.store.write() as session:
+                result, outcome = ingest_batch(
+                    session, runtime.pipeline, principal, batch, idempotency_key=idempotency_key
+                )
         if outcome is not None:
             record_outcome(METRICS, outcome, "http")
         return result, outcome is None
