@@ -180,15 +180,28 @@ def test_asset_page_draws_trend_threshold_band_and_events(live: LiveService, bro
     assert _by_id(browser, "diag-summary").text.startswith("outer_race")
     # the levels behind the diagnosis and the key indicators
     _wait(browser, lambda d: _css(d, "#diagnosis-chart rect.level"), "diagnosis levels")
-    labels = [t.text for t in _css(browser, "#diagnosis-chart text")]
+    # each read inside _wait: a redraw between finding the elements and reading them is retried
+    labels = _wait(
+        browser, lambda d: [t.text for t in _css(d, "#diagnosis-chart text")], "diagnosis labels"
+    )
     assert "de_accel.env_bpfo" in labels and "de_accel.order_1x" in labels
     assert "de_accel.kurtosis" not in labels  # not a defect-frequency or order line
-    panels = _css(browser, "#indicator-chart > svg > g > svg")
-    assert len(panels) == 4
-    titles = [p.find_element("css selector", "title").get_attribute("textContent") for p in panels]
+    titles = _wait(
+        browser,
+        lambda d: [
+            p.find_element("css selector", "title").get_attribute("textContent")
+            for p in _css(d, "#indicator-chart > svg > g > svg")
+        ],
+        "indicator panels",
+    )
+    assert len(titles) == 4
     assert titles[:2] == ["de_accel.velocity_rms", "de_accel.env_bpfo"]
-    trends = _css(browser, "#indicator-chart path.trend")
-    assert len(trends) == 4 and all(p.get_attribute("d").startswith("M") for p in trends)
+    paths = _wait(
+        browser,
+        lambda d: [p.get_attribute("d") for p in _css(d, "#indicator-chart path.trend")],
+        "indicator trends",
+    )
+    assert len(paths) == 4 and all(d.startswith("M") for d in paths)
     _assert_caution(browser)
     _shot(browser, "asset-laptop.png")
     browser.execute_script("document.getElementById('health-chart').scrollIntoView()")
