@@ -13,6 +13,7 @@ import shutil
 import subprocess
 from collections.abc import Iterator
 from pathlib import Path
+from typing import NoReturn
 
 import pytest
 
@@ -32,22 +33,30 @@ __all__ = [
     "MosquittoBroker",
     "free_port",
     "make_certificates",
+    "missing",
     "mosquitto",
     "private_mosquitto",
+    "require_tool",
 ]
 
 
-def require_tool(present: bool, what: str) -> None:
-    """Skip a test whose system tool is missing on a developer's machine, with the reason.
+def missing(what: str) -> NoReturn:
+    """Skip a test whose system tool or local service is missing on a developer's machine,
+    with the reason.
 
-    Under CI (``CI`` set) a missing tool fails instead: ``./dev test`` installs mosquitto and
-    openssl, so their absence there is a broken install step, not a reason to skip.
+    Under CI (``CI`` set) it fails instead: ``./dev test`` installs mosquitto, openssl and
+    PostgreSQL and ``.ci/run`` starts PostgreSQL, so their absence there is a broken install or
+    start step, not a reason to skip.
     """
-    if present:
-        return
     if os.environ.get("CI"):
-        pytest.fail(f"{what}; ./dev test should have installed it", pytrace=False)
+        pytest.fail(f"{what}; ./dev test should have installed or started it", pytrace=False)
     pytest.skip(what)
+
+
+def require_tool(present: bool, what: str) -> None:
+    """:func:`missing` unless ``present``."""
+    if not present:
+        missing(what)
 
 
 def make_certificates(folder: Path) -> BrokerCertificates:

@@ -20,7 +20,7 @@ from prognosis_service.settings import load_settings
 from prognosis_service.store.engine import Store
 from prognosis_service.store.migrate import upgrade
 from prognosis_service.store.models import Base
-from tests.brokers import MosquittoBroker
+from tests.brokers import MosquittoBroker, missing
 
 PG_ADMIN_URL = os.environ.get("WELLSPAN_TEST_PG", "postgresql://root@127.0.0.1:5432/test")
 
@@ -39,7 +39,7 @@ def pg_url() -> Iterator[str]:
     try:
         admin = psycopg.connect(PG_ADMIN_URL, autocommit=True, connect_timeout=3)
     except psycopg.OperationalError as exc:
-        pytest.skip(f"PostgreSQL not reachable at {PG_ADMIN_URL}: {exc}")
+        missing(f"PostgreSQL not reachable at {PG_ADMIN_URL}: {exc}")
     with admin:
         admin.execute(f'CREATE DATABASE "{name}"')
     base = PG_ADMIN_URL.rsplit("/", 1)[0].replace("postgresql://", "postgresql+psycopg://", 1)

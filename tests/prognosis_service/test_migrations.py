@@ -14,6 +14,7 @@ from sqlalchemy import create_engine, inspect
 
 from prognosis_service.store.migrate import current_revision, downgrade, head_revision, upgrade
 from prognosis_service.store.models import Base, import_all_models, object_applies
+from tests.brokers import missing
 from tests.prognosis_service.conftest import PG_ADMIN_URL
 
 TABLES = {
@@ -31,7 +32,7 @@ def empty_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str]:
     try:
         admin = psycopg.connect(PG_ADMIN_URL, autocommit=True, connect_timeout=3)
     except psycopg.OperationalError as exc:
-        pytest.skip(f"PostgreSQL not reachable: {exc}")
+        missing(f"PostgreSQL not reachable: {exc}")
     with admin:
         admin.execute(f'CREATE DATABASE "{name}"')
     base = PG_ADMIN_URL.rsplit("/", 1)[0].replace("postgresql://", "postgresql+psycopg://", 1)

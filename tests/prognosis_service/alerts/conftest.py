@@ -27,6 +27,7 @@ from prognosis_service.alerts.signing import SecretSealer
 from prognosis_service.alerts.ssrf import TargetPolicy
 from prognosis_service.store.engine import Store
 from prognosis_service.store.models import Base
+from tests.brokers import missing, require_tool
 
 ROOT = Path(__file__).resolve().parents[3]
 DOCS = ROOT / "docs" / "webhooks.md"
@@ -69,7 +70,7 @@ def pg_url() -> Iterator[str]:
             conn.execute(text(f'CREATE DATABASE "{name}"'))
     except Exception as exc:  # pragma: no cover - depends on the machine
         admin.dispose()
-        pytest.skip(f"PostgreSQL not reachable at {PG_ADMIN_URL}: {exc}")
+        missing(f"PostgreSQL not reachable at {PG_ADMIN_URL}: {exc}")
     url = f"postgresql+psycopg://root@127.0.0.1:5432/{name}"
     try:
         _create_schema(url)
@@ -286,8 +287,9 @@ class Mosquitto:
 @pytest.fixture
 def mosquitto(tmp_path: Path) -> Iterator[Mosquitto]:
     """A private broker on a free loopback port."""
-    if not MOSQUITTO.exists() or shutil.which(str(MOSQUITTO)) is None:
-        pytest.skip("mosquitto not installed")
+    require_tool(
+        MOSQUITTO.exists() and shutil.which(str(MOSQUITTO)) is not None, "mosquitto not installed"
+    )
     port = free_port()
     conf = tmp_path / "mosquitto.conf"
     conf.write_text(f"listener {port} 127.0.0.1\nallow_anonymous true\npersistence false\n")

@@ -12,11 +12,11 @@ from pathlib import Path
 from typing import Any
 
 import httpx
-import pytest
 
 from prognosis_service.alerts.delivery import DeliveryWorker, SqlDeliveryRepository
 from prognosis_service.alerts.ssrf import TargetPolicy
 from prognosis_service.alerts.webhooks import SubscriptionIn, create_subscription
+from tests.brokers import require_tool
 from tests.prognosis_service.alerts.test_delivery import changes_for, deliveries, enqueue
 
 HOST = "dispatch.saltbush.example"
@@ -28,8 +28,7 @@ def _now() -> datetime:
 
 def make_cert(folder: Path) -> tuple[Path, Path]:
     """A self-signed certificate for HOST (it is its own CA)."""
-    if shutil.which("openssl") is None:
-        pytest.skip("openssl not installed")
+    require_tool(shutil.which("openssl") is not None, "openssl not installed")
     cert, key = folder / "cert.pem", folder / "key.pem"
     subprocess.run(
         [
