@@ -236,6 +236,49 @@ def _velocity_channels(names: tuple[str, ...]) -> tuple[tuple[int, str], ...]:
     )
 
 
+def overall_velocity(diagnosis: dict[str, Any] | None) -> float | None:
+    """The largest overall r.m.s. velocity (mm/s) among a diagnosis' indicators, or None.
+
+    The reading the ISO 10816-3 severity zone is judged on; stored with the result so the
+    fleet view need not read the diagnosis' indicator table.
+    """
+    speeds = [
+        float(i["value"])
+        for i in (diagnosis or {}).get("indicators", [])
+        if i["name"].endswith(".velocity_rms")
+    ]
+    return max(speeds) if speeds else None
+
+
+def fleet_summary(result: dict[str, Any]) -> dict[str, Any]:
+    """The fields of an assessment result that the fleet view lists, and the fitted model's
+    state for its probability within a chosen horizon.
+
+    Stored beside the result (``asset_assessments.summary``): a result is about 6 kB, most of
+    it the diagnosis' indicator table, and reading and decoding a thousand of them was most of
+    the fleet view's time (cProfile, 1,000 assets); a summary is under 1 kB.
+    """
+    summary = {k: result[k] for k in _SUMMARY_KEYS if k in result}
+    diag = result.get("diagnosis")
+    if summary.get("velocity_rms_mm_s") is None:  # a result from before it was stored
+        summary["velocity_rms_mm_s"] = overall_velocity(diag)
+    summary["diagnosis"] = (
+        {"fault": diag["fault"], "confidence": diag["confidence"]} if diag else diag
+    )
+    return summary
+
+
+_SUMMARY_KEYS = (
+    "health_index",
+    "failure_threshold",
+    "anomaly",
+    "velocity_rms_mm_s",
+    "model_state",
+    "quantiles_h",
+    "last_time_h",
+)
+
+
 class _Run:
     """One assess call's working state inside its write transaction."""
 
@@ -805,6 +848,7 @@ def _summarise(run: _Run, events: Sequence[MaintenanceEventRow]) -> dict[str, An
     recent = [p for p in points[-cfg.detect_windows :] if p[1] is not None and p[2] is not None]
     over = float(np.mean([p[1] > p[2] for p in recent])) if recent else 0.0  # type: ignore[operator]
     result["diagnosis"] = _diagnosis(run)
+    result["velocity_rms_mm_s"] = overall_velocity(result["diagnosis"])
     mode = _leading_mode(points, result["diagnosis"])
     series = [(p[0], p[3][mode]) for p in points]
     width = _bucket_width(series, seg, cfg)
@@ -964,10 +1008,12 @@ def assess_asset(
                 or changed
                 or before != after
                 or row.result is None
+                or row.summary is None
             ):
                 session.flush()
                 result = _summarise(run, events)
                 row.result = result
+                row.summary = fleet_summary(result)
                 _final_readings(run, result)
             row.state = run.state
             row.updated_at = datetime.now(UTC)

@@ -56,6 +56,7 @@ class AssetAssessment(Base):
     lease_until: Mapped[datetime | None]
     state: Mapped[dict[str, Any] | None]
     result: Mapped[dict[str, Any] | None]
+    summary: Mapped[dict[str, Any] | None]  # what the fleet view lists: fleet_summary(result)
     as_of: Mapped[datetime | None]
     updated_at: Mapped[datetime | None]
 

@@ -8,8 +8,10 @@ from datetime import UTC, datetime, timedelta
 
 import pytest
 from fastapi.testclient import TestClient
+from sqlalchemy import null, select
 
 from edge_agent.simulator import FaultScenario
+from prognosis_service.alerts.rules import ZoneRule, severity_zone
 from prognosis_service.app import create_app
 from prognosis_service.assessment.assessor import assess_asset
 from prognosis_service.assessment.diagnosis_model import load_classifier
@@ -94,6 +96,28 @@ def test_fleet_risk_sorts_most_at_risk_first(degrading: Service) -> None:
         "/v1/fleet/risk", params={"site": "saltbush-flats"}, headers=s.auth(s.keys.mallee_reader)
     )
     assert r.status_code == 403
+
+
+def test_fleet_risk_reads_the_summary_or_else_the_whole_result(degrading: Service) -> None:
+    s = degrading
+    body = _get(s, "/v1/fleet/risk", s.keys.reader, horizon_h=240)
+    # the zone is that of the largest overall velocity in the diagnosis (ISO 10816-3 zones)
+    d = _get(s, "/v1/assets/MAL-P2/diagnosis", s.keys.reader)
+    v = max(i["value"] for i in d["indicators"] if i["name"].endswith(".velocity_rms"))
+    assert body["items"][0]["zone"] == severity_zone(v, ZoneRule())
+    with s.store.write() as session:  # rows as assessed before the summary column existed
+        rows = session.scalars(select(AssetAssessment)).all()
+        assert all(r.summary is not None for r in rows)
+        for r in rows:
+            r.summary = null()  # SQL NULL, as the migration leaves them (None is JSON null)
+            if r.result is not None:
+                r.result = {**r.result, "velocity_rms_mm_s": None}
+    assert _get(s, "/v1/fleet/risk", s.keys.reader, horizon_h=240) == body
+    assess_asset(s.store, "MAL-P2", classifier=load_classifier())  # writes the summary again
+    with s.store.read() as session:
+        assert session.get(AssetAssessment, "MAL-P2").summary is not None  # type: ignore[union-attr]
+    again = _get(s, "/v1/fleet/risk", s.keys.reader, horizon_h=240)["items"]
+    assert [{**i, "as_of": None} for i in again] == [{**i, "as_of": None} for i in body["items"]]
 
 
 def test_health_history_and_diagnosis(degrading: Service) -> None:
