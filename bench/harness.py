@@ -477,7 +477,10 @@ def _registry() -> dict[str, Benchmark]:
             description=(
                 "A private Mosquitto and private PostgreSQL/SQLite stores: the broker-only rate "
                 "(the floor), MQTT ingest into each store as a share of it, HTTP batch ingest, "
-                "and history query latency at fleet scale. Needs Mosquitto and PostgreSQL."
+                "history query latency at fleet scale, and time-to-failure and fleet-view "
+                "latency over HTTP with 1,000 assets × 60 days of hourly windows from simulated "
+                "pumps, assessed by the assessment worker (how many got a forecast, and how long "
+                "assessing the fleet took, on SQLite). Needs Mosquitto and PostgreSQL."
             ),
         ),
         Benchmark(
