@@ -6,13 +6,17 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.special import log_ndtr, ndtr
 
-__all__ = ["random_drift_failure_probability", "random_drift_first_passage_cdf"]
+__all__ = [
+    "random_drift_failure_probabilities",
+    "random_drift_failure_probability",
+    "random_drift_first_passage_cdf",
+]
 
 
 def random_drift_first_passage_cdf(
     h: ArrayLike,
     *,
-    distance: float,
+    distance: ArrayLike,
     drift_mean: float,
     drift_var: float,
     diffusion_var: float,
@@ -29,8 +33,10 @@ def random_drift_first_passage_cdf(
     ----------
     h : array_like
         Times after now (same time unit as the rates), ``h <= 0`` gives 0.
-    distance : float
-        Remaining distance ``d > 0`` to the threshold, in signal units.
+    distance : float or array_like
+        Remaining distance ``d > 0`` to the threshold, in signal units. An array is broadcast
+        against ``h`` (e.g. distances of shape ``(k, 1)`` with times of shape ``(n,)`` give a
+        ``(k, n)`` result), so several threshold levels take one call.
     drift_mean, drift_var : float
         Mean ``m`` and variance ``s² >= 0`` of the drift, signal units per time unit (squared).
     diffusion_var : float
@@ -41,12 +47,19 @@ def random_drift_first_passage_cdf(
     Chhikara & Folks, *The Inverse Gaussian Distribution*, Marcel Dekker (1989) (first passage).
     Peng & Tseng, "Mis-specification analysis of linear degradation models", IEEE Trans.
     Reliability 58(3) (2009) 444–455 (random-drift mixture; from memory).
+
+    Returns
+    -------
+    ndarray of float
+        Shape of ``h`` broadcast against ``distance``, in [0, 1].
     """
     h_arr = np.asarray(h, dtype=float)
-    out = np.zeros_like(h_arr)
+    d = np.asarray(distance, dtype=float)
     pos = h_arr > 0
-    hp = h_arr[pos]
-    d, m, s2, v = float(distance), float(drift_mean), float(drift_var), float(diffusion_var)
+    # where-and-broadcast rather than masking: the quantile search calls this with one time and
+    # 16 distances dozens of times, where indexing and broadcast_arrays dominate the cost
+    hp = np.where(pos, h_arr, 1.0)
+    m, s2, v = float(drift_mean), float(drift_var), float(diffusion_var)
     root = np.sqrt(hp * (v + s2 * hp))
     first = ndtr((m * hp - d) / root)
     log_second = (
@@ -54,19 +67,34 @@ def random_drift_first_passage_cdf(
         + 2.0 * s2 * d * d / (v * v)
         + log_ndtr(-(d + m * hp + 2.0 * s2 * d * hp / v) / root)
     )
-    out[pos] = np.clip(first + np.exp(np.minimum(log_second, 0.0)), 0.0, 1.0)
-    return out
+    cdf = np.minimum(np.maximum(first + np.exp(np.minimum(log_second, 0.0)), 0.0), 1.0)
+    return np.where(pos, cdf, 0.0)
 
 
 def random_drift_failure_probability(
     *, distance: float, drift_mean: float, drift_var: float, diffusion_var: float
 ) -> float:
     """P(T < ∞): the limit of :func:`random_drift_first_passage_cdf` as h → ∞."""
-    d, m, s2, v = float(distance), float(drift_mean), float(drift_var), float(diffusion_var)
+    return float(
+        random_drift_failure_probabilities(
+            distance=float(distance),
+            drift_mean=drift_mean,
+            drift_var=drift_var,
+            diffusion_var=diffusion_var,
+        )
+    )
+
+
+def random_drift_failure_probabilities(
+    *, distance: ArrayLike, drift_mean: float, drift_var: float, diffusion_var: float
+) -> NDArray:
+    """:func:`random_drift_failure_probability` for an array of distances (same shape out)."""
+    d = np.asarray(distance, dtype=float)
+    m, s2, v = float(drift_mean), float(drift_var), float(diffusion_var)
     if s2 <= 0.0:
-        return 1.0 if m > 0 else float(np.exp(2.0 * m * d / v))
+        return np.ones_like(d) if m > 0 else np.exp(2.0 * m * d / v)
     s = np.sqrt(s2)
     log_second = (
         2.0 * m * d / v + 2.0 * s2 * d * d / (v * v) + log_ndtr(-(m + 2.0 * s2 * d / v) / s)
     )
-    return float(np.clip(ndtr(m / s) + np.exp(min(log_second, 0.0)), 0.0, 1.0))
+    return np.asarray(np.clip(ndtr(m / s) + np.exp(np.minimum(log_second, 0.0)), 0.0, 1.0))

@@ -42,7 +42,7 @@ from prognosis_service.health._checks import (
     reset_fitted,
 )
 from prognosis_service.prognosis._first_passage import (
-    random_drift_failure_probability,
+    random_drift_failure_probabilities,
     random_drift_first_passage_cdf,
 )
 
@@ -136,6 +136,9 @@ def _increment_sigma2(dx: NDArray, dt: NDArray, slope: float, dof: int) -> float
 
 
 _N_LEVELS = 16  # failure levels averaged over when the threshold is uncertain
+_N_BRACKET = 80  # doubling steps searched for a quantile's bracket
+_QUANTILE_XTOL_H = 1e-6  # hours
+_QUANTILE_RTOL = 1e-9
 
 
 def _check_threshold_sd(owner: str, value: float) -> float:
@@ -144,6 +147,9 @@ def _check_threshold_sd(owner: str, value: float) -> float:
 
 class _DegradationModel(BaseEstimator):
     """Common forecasting interface; subclasses provide ``_cdf_at`` and ``_ultimate_at``.
+
+    Both take an array of failure levels and evaluate them in one call (``_cdf_at`` returns one
+    row per level, broadcast against the hours).
 
     With ``threshold_sd > 0`` the unit's own failure level is uncertain: normal about
     ``threshold`` with that SD, truncated to above the last observation (the unit is still
@@ -154,10 +160,12 @@ class _DegradationModel(BaseEstimator):
     threshold: float
     threshold_sd: float = 0.0
 
-    def _cdf_at(self, h: NDArray, level: float) -> NDArray:
+    def _cdf_at(self, h: NDArray, levels: NDArray) -> NDArray:
+        """CDF at ``h`` for each level: shape ``(levels.size, *h.shape)``."""
         raise NotImplementedError
 
-    def _ultimate_at(self, level: float) -> float:
+    def _ultimate_at(self, levels: NDArray) -> NDArray:
+        """P(failure ever) for each level: shape ``(levels.size,)``."""
         raise NotImplementedError
 
     def _levels(self) -> NDArray:
@@ -184,11 +192,10 @@ class _DegradationModel(BaseEstimator):
 
     def _cdf(self, h: NDArray) -> NDArray:
         levels = self._levels()
-        return np.asarray(sum(self._cdf_at(h, float(d)) for d in levels) / levels.size)
+        return np.asarray(np.sum(self._cdf_at(h, levels), axis=0) / levels.size)
 
     def _ultimate(self) -> float:
-        levels = self._levels()
-        return float(np.mean([self._ultimate_at(float(d)) for d in levels]))
+        return float(np.mean(self._ultimate_at(self._levels())))
 
     def _check_fitted(self) -> None:
         check_is_fitted(self, "last_time_")
@@ -236,27 +243,30 @@ class _DegradationModel(BaseEstimator):
             raise ValueError(f"q must lie in (0, 1); got {q!r}")
         if self.threshold_crossed_:
             return np.zeros_like(qs)
-        ultimate = self._ultimate()
-        out = np.empty_like(qs)
-        for i, level in enumerate(qs):
-            out[i] = self._quantile(float(level), ultimate)
-        return out
+        return self._quantiles(qs, self._ultimate())
 
-    def _quantile(self, level: float, ultimate: float) -> float:
-        if level >= ultimate - 1e-9:
-            return math.inf
-        lo, hi = 0.0, max(self.last_time_, 1.0) * 1e-3
-        for _ in range(80):
-            if self._cdf(np.array([hi]))[0] >= level:
-                break
-            lo, hi = hi, hi * 2.0
-        else:
-            return math.inf
-        return float(
-            optimize.brentq(
-                lambda h: float(self._cdf(np.array([h]))[0]) - level, lo, hi, xtol=1e-9, rtol=1e-10
+    def _quantiles(self, qs: NDArray, ultimate: float) -> NDArray:
+        # Bracket on the doubling grid h0·2^k (k < 80; doubling is exact, so these are the
+        # points a doubling search would visit) evaluated in one call for every quantile, then
+        # Brent within the first bracket that reaches the level (the first crossing when the CDF
+        # is not monotone). Hours need no more than xtol = 1e-6 h.
+        grid = max(self.last_time_, 1.0) * 1e-3 * 2.0 ** np.arange(_N_BRACKET)
+        cdf = self._cdf(grid)
+        out = np.full_like(qs, math.inf)
+        for i, level in enumerate(qs.tolist()):
+            reached = np.flatnonzero(cdf >= level)
+            if level >= ultimate - 1e-9 or reached.size == 0:
+                continue
+            k = int(reached[0])
+            lo, hi = (0.0 if k == 0 else float(grid[k - 1])), float(grid[k])
+            out[i] = optimize.brentq(
+                lambda h, level=level: float(self._cdf(np.array([h]))[0]) - level,
+                lo,
+                hi,
+                xtol=_QUANTILE_XTOL_H,
+                rtol=_QUANTILE_RTOL,
             )
-        )
+        return out
 
     def latest_maintenance_time(self, risk: float) -> float:
         """Hours after the last observation by which P(failure) reaches ``risk``.
@@ -493,43 +503,48 @@ class ExponentialDegradation(_DegradationModel):
         self.threshold_crossed_ = self._crossed()
         return self
 
-    def _log_level(self, level: float) -> float:
-        return math.log(level - float(self.offset))
+    def _log_level(self, levels: NDArray) -> NDArray:
+        return np.log(levels - float(self.offset))
 
-    def _g(self, s: NDArray, level: float) -> NDArray:
+    def _g(self, s: NDArray | float, log_level: NDArray) -> NDArray:
         mn, C = self.posterior_mean_, self.posterior_cov_
         mean = mn[0] + mn[1] * s
         var = C[0, 0] + C[1, 1] * s * s + 2.0 * C[0, 1] * s + self.sigma2_ * s
-        return (mean - self._log_level(level)) / np.sqrt(var)
+        return np.asarray((mean - log_level) / np.sqrt(var))
 
-    def _cdf_at(self, h: NDArray, level: float) -> NDArray:
+    def _first_passage_kw(self) -> dict[str, float]:
+        return {
+            "drift_mean": float(self.posterior_mean_[1]),
+            "drift_var": float(self.posterior_cov_[1, 1]),
+            "diffusion_var": self.sigma2_,
+        }
+
+    def _f0(self, log_level: NDArray) -> tuple[NDArray, NDArray]:
+        """Gebraeel CDF at ``tk`` per level, and which levels it already counts as passed."""
+        f0 = ndtr(self._g(self.last_time_, log_level))
+        return f0, f0 >= _PASSED
+
+    def _cdf_at(self, h: NDArray, levels: NDArray) -> NDArray:
+        log_level = self._log_level(levels).reshape((-1,) + (1,) * h.ndim)
         if self.predictive == "first_passage":
             return random_drift_first_passage_cdf(
-                h,
-                distance=self._log_level(level) - self.last_log_signal_,
-                drift_mean=float(self.posterior_mean_[1]),
-                drift_var=float(self.posterior_cov_[1, 1]),
-                diffusion_var=self.sigma2_,
+                h, distance=log_level - self.last_log_signal_, **self._first_passage_kw()
             )
-        f0 = float(ndtr(self._g(np.array([self.last_time_]), level)[0]))
-        if f0 >= _PASSED:
-            return np.ones_like(h)
-        f = ndtr(self._g(self.last_time_ + h, level))
-        return np.clip((f - f0) / (1.0 - f0), 0.0, 1.0)
+        f0, passed = self._f0(log_level)
+        f = ndtr(self._g(self.last_time_ + h, log_level))
+        cdf = np.clip((f - f0) / np.where(passed, 1.0, 1.0 - f0), 0.0, 1.0)
+        return np.where(passed, 1.0, cdf)
 
-    def _ultimate_at(self, level: float) -> float:
+    def _ultimate_at(self, levels: NDArray) -> NDArray:
+        log_level = self._log_level(levels)
         if self.predictive == "first_passage":
-            return random_drift_failure_probability(
-                distance=self._log_level(level) - self.last_log_signal_,
-                drift_mean=float(self.posterior_mean_[1]),
-                drift_var=float(self.posterior_cov_[1, 1]),
-                diffusion_var=self.sigma2_,
+            return random_drift_failure_probabilities(
+                distance=log_level - self.last_log_signal_, **self._first_passage_kw()
             )
-        f0 = float(ndtr(self._g(np.array([self.last_time_]), level)[0]))
-        if f0 >= _PASSED:
-            return 1.0
+        f0, passed = self._f0(log_level)
         f_inf = float(ndtr(self.posterior_mean_[1] / math.sqrt(self.posterior_cov_[1, 1])))
-        return float(np.clip((f_inf - f0) / (1.0 - f0), 0.0, 1.0))
+        ultimate = np.clip((f_inf - f0) / np.where(passed, 1.0, 1.0 - f0), 0.0, 1.0)
+        return np.where(passed, 1.0, ultimate)
 
     def to_state(self) -> dict[str, Any]:
         """Return the fitted state as JSON-ready plain values."""
@@ -718,19 +733,21 @@ class WienerDegradation(_DegradationModel):
         self.threshold_crossed_ = self._crossed()
         return self
 
-    def _passage(self, level: float) -> dict[str, float]:
+    def _passage(self) -> dict[str, float]:
         return {
-            "distance": level - self.last_signal_,
             "drift_mean": self.drift_mean_,
             "drift_var": self.drift_var_,
             "diffusion_var": self.sigma2_,
         }
 
-    def _cdf_at(self, h: NDArray, level: float) -> NDArray:
-        return random_drift_first_passage_cdf(h, **self._passage(level))
+    def _cdf_at(self, h: NDArray, levels: NDArray) -> NDArray:
+        distance = levels.reshape((-1,) + (1,) * h.ndim) - self.last_signal_
+        return random_drift_first_passage_cdf(h, distance=distance, **self._passage())
 
-    def _ultimate_at(self, level: float) -> float:
-        return random_drift_failure_probability(**self._passage(level))
+    def _ultimate_at(self, levels: NDArray) -> NDArray:
+        return random_drift_failure_probabilities(
+            distance=levels - self.last_signal_, **self._passage()
+        )
 
     def to_state(self) -> dict[str, Any]:
         """Return the fitted state as JSON-ready plain values."""
@@ -835,8 +852,8 @@ class LinearTrendExtrapolation(_DegradationModel):
     def _ultimate(self) -> float:
         return 1.0
 
-    def _quantile(self, level: float, ultimate: float) -> float:
-        return self.time_to_failure_
+    def _quantiles(self, qs: NDArray, ultimate: float) -> NDArray:
+        return np.full_like(qs, self.time_to_failure_)
 
     def to_state(self) -> dict[str, Any]:
         """Return the fitted state as JSON-ready plain values."""
