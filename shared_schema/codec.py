@@ -42,6 +42,7 @@ from typing import Any, TypeVar
 from uuid import UUID
 
 import annotated_types
+import msgspec
 from pydantic import BaseModel, TypeAdapter, ValidationError
 
 from shared_schema.errors import DecodeError, DecodeReason, EncodeError
@@ -63,12 +64,15 @@ __all__ = [
     "MAX_JSON_BYTES",
     "FrameHeader",
     "LayoutLookup",
+    "ReadableIndicator",
+    "ReadableMessage",
     "decode_indicators",
     "decode_json",
     "encode_batch",
     "encode_indicators",
     "encode_json",
     "from_readable",
+    "from_readable_struct",
     "is_batch",
     "peek_header",
     "quantise",
@@ -962,17 +966,48 @@ def _readable_fast(body: dict[str, Any]) -> IndicatorMessage:
     """Build a message from a well-formed readable body; raises _SlowPathError otherwise."""
     if not body.keys() <= _MESSAGE_FIELDS:
         raise _SlowPathError
-    version = body.get("schema_version", SCHEMA_MAJOR)
     message_id = body.get("message_id")
-    sequence = body.get("sequence")
-    window_start = body.get("window_start")
-    site, gateway_id, asset_id = body.get("site"), body.get("gateway_id"), body.get("asset_id")
-    digest = body.get("layout_digest")
+    if type(message_id) is not str or not _UUID_TEXT.fullmatch(message_id):
+        raise _SlowPathError
+    return _fast_message(
+        body.get("schema_version", SCHEMA_MAJOR),
+        UUID(message_id),
+        body.get("sequence"),
+        body.get("window_start"),
+        body.get("site"),
+        body.get("gateway_id"),
+        body.get("asset_id"),
+        body.get("layout_digest"),
+        body.get("window_s"),
+        body.get("clock_sync", ClockSync.SYNCED),
+        body.get("operating", msgspec.UNSET),
+        body.get("quality", ()),
+        body["values"],
+        set(body),
+    )
+
+
+def _fast_message(
+    version: Any,
+    message_id: UUID,
+    sequence: Any,
+    window_start: Any,
+    site: Any,
+    gateway_id: Any,
+    asset_id: Any,
+    digest: Any,
+    window_s: Any,
+    clock: Any,
+    operating: Any,
+    quality: Any,
+    raw_values: list[Any],
+    fields_set: set[str],
+) -> IndicatorMessage:
+    """The checks and the build of :func:`_readable_fast`, on the fields of either decoding
+    (a dict, or a :class:`ReadableMessage`); ``operating`` is ``msgspec.UNSET`` when absent."""
     if not (
         type(version) is int
         and version == SCHEMA_MAJOR
-        and type(message_id) is str
-        and _UUID_TEXT.fullmatch(message_id)
         and type(sequence) is int
         and 0 <= sequence < _SEQUENCE_LIMIT
         and type(window_start) is str
@@ -992,26 +1027,23 @@ def _readable_fast(body: dict[str, Any]) -> IndicatorMessage:
         raise _SlowPathError
     if start.tzinfo is not UTC:
         start = start.astimezone(UTC)
-    clock = body.get("clock_sync", ClockSync.SYNCED)
     if type(clock) is str:
         clock = _CLOCK_BY_VALUE.get(clock)
     if type(clock) is not ClockSync:
         raise _SlowPathError
-    operating = body.get("operating")
-    if operating is None:
-        if "operating" in body:
-            raise _SlowPathError
+    if operating is msgspec.UNSET:
         operating = _DEFAULT_OPERATING
+    elif operating is None:
+        raise _SlowPathError
     else:
         operating = _readable_operating(operating)
-    quality: Any = body.get("quality", ())
     if quality:
         quality = _readable_quality(quality)
     elif type(quality) is list or quality == ():
         quality = ()
     else:
         raise _SlowPathError
-    values = tuple(body["values"])
+    values = tuple(raw_values)
     if set(map(type, values)) != {float} or not math.isfinite(sum(values)):
         values = tuple(
             v if v is None or (type(v) is float and math.isfinite(v)) else _number(v, _ANY)
@@ -1021,20 +1053,20 @@ def _readable_fast(body: dict[str, Any]) -> IndicatorMessage:
         IndicatorMessage,
         {
             "schema_version": SCHEMA_MAJOR,
-            "message_id": UUID(message_id),
+            "message_id": message_id,
             "gateway_id": gateway_id,
             "sequence": sequence,
             "site": site,
             "asset_id": asset_id,
             "window_start": start,
-            "window_s": _number(body.get("window_s"), _WINDOW_S_BOUNDS),
+            "window_s": _number(window_s, _WINDOW_S_BOUNDS),
             "clock_sync": clock,
             "operating": operating,
             "quality": quality,
             "layout_digest": digest,
             "values": values,
         },
-        set(body),
+        fields_set,
     )
 
 
@@ -1078,3 +1110,113 @@ def _readable_quality(obj: object) -> tuple[ChannelQuality, ...]:
             qflags.append(flag)
         entries.append((q.get("channel"), frozenset(qflags), spikes, set(q)))  # type: ignore[arg-type]
     return _quality_built(entries)
+
+
+# -- the readable form decoded by msgspec straight into structs --------------------------------
+#
+# For a batch of readable messages (POST /v1/indicators): msgspec builds these from the JSON
+# bytes without a dict per message and per indicator, then from_readable_struct runs the very
+# checks of the fast path above on them. A field's type is Any where the fast path checks the
+# value itself, so a struct holds what the dict would have; the decoding refuses only what the
+# fast path would refuse too (a key the contract does not know, an indicator entry that is not
+# an object, a message id that is no UUID, a token msgspec does not parse such as NaN), and the
+# caller then takes the dict path for the whole batch. The contract: from_readable_struct gives
+# the very message (fields, types, fields set) from_readable gives for the same object, or None.
+
+
+class ReadableIndicator(msgspec.Struct):
+    """One entry of ``indicators``; other keys are ignored, as the dict path ignores them."""
+
+    name: Any = msgspec.UNSET
+    unit: Any = msgspec.UNSET
+    value: Any = None
+
+
+class ReadableMessage(msgspec.Struct, forbid_unknown_fields=True):
+    """A readable indicator message as msgspec decodes it (``UNSET``: the key was absent)."""
+
+    schema_version: Any = msgspec.UNSET
+    message_id: UUID | msgspec.UnsetType = msgspec.UNSET
+    gateway_id: Any = msgspec.UNSET
+    sequence: Any = msgspec.UNSET
+    site: Any = msgspec.UNSET
+    asset_id: Any = msgspec.UNSET
+    window_start: Any = msgspec.UNSET
+    window_s: Any = msgspec.UNSET
+    clock_sync: Any = msgspec.UNSET
+    operating: Any = msgspec.UNSET
+    quality: Any = msgspec.UNSET
+    layout_digest: Any = msgspec.UNSET
+    indicators: list[ReadableIndicator] | msgspec.UnsetType = msgspec.UNSET
+
+
+_REQUIRED_SET = frozenset(
+    ("message_id", "gateway_id", "sequence", "site", "asset_id", "window_start", "window_s",
+     "layout_digest", "values")
+)  # fmt: skip
+_OPTIONAL = ("schema_version", "clock_sync", "operating", "quality")
+# The fields given, by which of the optional ones were present (bit i: _OPTIONAL[i]).
+_FIELDS_SET = [
+    _REQUIRED_SET | {f for i, f in enumerate(_OPTIONAL) if mask >> i & 1}
+    for mask in range(1 << len(_OPTIONAL))
+]
+_UNSET = msgspec.UNSET
+
+
+def from_readable_struct(m: ReadableMessage, layouts: LayoutLookup) -> IndicatorMessage | None:
+    """The message :func:`from_readable` would build from the same JSON object, or None where
+    the fast path does not prove it well formed (then :func:`from_readable` decides on the
+    dict, refusal and wording included)."""
+    indicators = m.indicators
+    digest = m.layout_digest
+    message_id = m.message_id
+    if indicators is _UNSET or type(digest) is not str or message_id is _UNSET:
+        return None
+    version, clock, operating, quality = m.schema_version, m.clock_sync, m.operating, m.quality
+    mask = 0
+    if version is _UNSET:
+        version = SCHEMA_MAJOR
+    else:
+        mask = 1
+    if clock is _UNSET:
+        clock = ClockSync.SYNCED
+    else:
+        mask |= 2
+    if operating is not _UNSET:
+        mask |= 4
+    if quality is _UNSET:
+        quality = ()
+    else:
+        mask |= 8
+    if version != SCHEMA_MAJOR:
+        return None
+    layout = layouts(digest) if callable(layouts) else layouts.get(digest)
+    if layout is None:
+        return None
+    codec = _codec_of(layout)
+    if len(indicators) != len(codec.names) or [i.name for i in indicators] != codec.name_list:
+        return None
+    units = [i.unit for i in indicators]
+    if units != codec.unit_list and not all(
+        u is _UNSET or u == want for u, want in zip(units, codec.unit_list, strict=True)
+    ):
+        return None
+    try:
+        return _fast_message(
+            version,
+            message_id,
+            m.sequence,
+            m.window_start,
+            m.site,
+            m.gateway_id,
+            m.asset_id,
+            digest,
+            m.window_s,
+            clock,
+            operating,
+            quality,
+            [i.value for i in indicators],
+            set(_FIELDS_SET[mask]),
+        )
+    except _SlowPathError:
+        return None

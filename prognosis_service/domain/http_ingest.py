@@ -18,6 +18,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from functools import partial
 from typing import Any
 
 import msgspec
@@ -29,6 +30,7 @@ from prognosis_service.ingest.pipeline import BatchOutcome, Inbound, Pipeline
 from prognosis_service.store.engine import insert_for
 from prognosis_service.store.models import IdempotencyRecord
 from shared_schema import DecodeError, IndicatorLayout, IndicatorMessage, decode_json
+from shared_schema.codec import ReadableMessage
 
 __all__ = [
     "MAX_BODY_BYTES",
@@ -62,12 +64,33 @@ class IdempotencyConflictError(DomainError):
 @dataclass(slots=True)
 class ParsedBatch:
     """A request body parsed and its envelope checked; ``decoded`` is filled by
-    :func:`decode_batch` (None for an entry left to the pipeline to decode and quarantine)."""
+    :func:`decode_batch` (None for an entry left to the pipeline to decode and quarantine).
+
+    A body msgspec could decode into :class:`ReadableMessage` structs (nearly all) keeps those
+    in ``typed`` and is parsed into plain objects (``messages``) only if one of its messages
+    needs them: to be decoded the long way, or to be quarantined with its JSON form.
+    """
 
     body: bytes
     layouts: list[IndicatorLayout]
-    messages: list[Any]
+    objects: list[Any] | None
+    typed: list[ReadableMessage] | None = None
     decoded: list[IndicatorMessage | None] = field(default_factory=list)
+
+    def __len__(self) -> int:
+        return len(self.typed) if self.typed is not None else len(self.messages)
+
+    @property
+    def messages(self) -> list[Any]:
+        """The messages as parsed JSON objects (what :func:`loads` gives)."""
+        if self.objects is None:
+            doc = loads(self.body)
+            self.objects = doc["messages"] if isinstance(doc, dict) else doc
+            assert self.typed is None or len(self.objects) == len(self.typed)
+        return self.objects
+
+    def message(self, index: int) -> Any:
+        return self.messages[index]
 
     @property
     def sha256(self) -> str:
@@ -75,9 +98,43 @@ class ParsedBatch:
         return hashlib.sha256(self.body).hexdigest()
 
 
+class _TypedBody(msgspec.Struct, forbid_unknown_fields=True):
+    messages: list[ReadableMessage]
+    layouts: list[Any] = []
+
+
+_TYPED_JSON = msgspec.json.Decoder(_TypedBody | list[ReadableMessage])
+
+
+def _parse_typed(body: bytes) -> tuple[list[IndicatorLayout], list[ReadableMessage]] | None:
+    """The envelope and its messages decoded into structs, or None for a body msgspec does not
+    take so (any odd message, key or token): :func:`_parse` then decides on the whole body."""
+    try:
+        doc = _TYPED_JSON.decode(body)
+    except (msgspec.MsgspecError, RecursionError):
+        return None
+    if isinstance(doc, list):
+        messages, raw_layouts = doc, []
+    else:
+        messages, raw_layouts = doc.messages, doc.layouts
+    if len(messages) > MAX_MESSAGES:
+        raise PayloadTooLargeError(f"{len(messages)} messages exceed {MAX_MESSAGES} per request")
+    return _layouts(raw_layouts), messages
+
+
+def _layouts(raw_layouts: list[Any]) -> list[IndicatorLayout]:
+    layouts = []
+    for i, obj in enumerate(raw_layouts):
+        if not isinstance(obj, dict):
+            raise InvalidInputError(f"layouts[{i}]: an object is required")
+        try:
+            layouts.append(decode_json(obj, IndicatorLayout))
+        except DecodeError as exc:
+            raise InvalidInputError(f"layouts[{i}]: {exc.reason.value}: {exc.detail}") from None
+    return layouts
+
+
 def _parse(body: bytes) -> tuple[list[IndicatorLayout], list[Any]]:
-    if len(body) > MAX_BODY_BYTES:
-        raise PayloadTooLargeError(f"body of {len(body)} bytes exceeds {MAX_BODY_BYTES}")
     try:
         doc = loads(body)
     except (ValueError, RecursionError) as exc:
@@ -99,15 +156,7 @@ def _parse(body: bytes) -> tuple[list[IndicatorLayout], list[Any]]:
         raise PayloadTooLargeError(f"{len(messages)} messages exceed {MAX_MESSAGES} per request")
     if not isinstance(raw_layouts, list):
         raise InvalidInputError("layouts: a list of indicator layouts is required")
-    layouts = []
-    for i, obj in enumerate(raw_layouts):
-        if not isinstance(obj, dict):
-            raise InvalidInputError(f"layouts[{i}]: an object is required")
-        try:
-            layouts.append(decode_json(obj, IndicatorLayout))
-        except DecodeError as exc:
-            raise InvalidInputError(f"layouts[{i}]: {exc.reason.value}: {exc.detail}") from None
-    return layouts, messages
+    return _layouts(raw_layouts), messages
 
 
 _FAST_JSON = msgspec.json.Decoder()
@@ -179,18 +228,30 @@ def parse_batch(body: bytes, principal: Principal) -> ParsedBatch:
         For an envelope that is not JSON, too large or malformed, or a message for a site the
         key may not send for.
     """
-    layouts, messages = _parse(body)
+    if len(body) > MAX_BODY_BYTES:
+        raise PayloadTooLargeError(f"body of {len(body)} bytes exceeds {MAX_BODY_BYTES}")
+    typed = _parse_typed(body)
+    if typed is not None:
+        batch = ParsedBatch(body, typed[0], None, typed[1])
+    else:
+        layouts, messages = _parse(body)
+        batch = ParsedBatch(body, layouts, messages)
     if principal.sites is not None:
-        for i, m in enumerate(messages):
-            site = m.get("site") if isinstance(m, dict) else None
+        if batch.typed is not None:
+            sites = [m.site for m in batch.typed]
+        else:
+            sites = [m.get("site") if isinstance(m, dict) else None for m in batch.messages]
+        for i, site in enumerate(sites):
             if isinstance(site, str) and not principal.may_see(site):
                 raise ForbiddenError(f"messages[{i}]: this key may not send data for site {site!r}")
-    return ParsedBatch(body, layouts, messages)
+    return batch
 
 
 def decode_batch(session: Session, pipeline: Pipeline, batch: ParsedBatch) -> None:
     """Decode the batch's messages in a read ``session``, before the write transaction."""
-    batch.decoded = pipeline.decode_readable(session, batch.messages, batch.layouts)
+    batch.decoded = pipeline.decode_readable(
+        session, lambda: batch.messages, batch.layouts, typed=batch.typed
+    )
 
 
 def ingest_batch(
@@ -219,13 +280,26 @@ def ingest_batch(
                 )
             return dict(earlier.response), None
     now = datetime.now(UTC)
-    decoded = batch.decoded or [None] * len(batch.messages)
-    items = [
-        Inbound(topic=None, payload=b"", received_at=now, source="http", obj=m, decoded=d)
-        for m, d in zip(batch.messages, decoded, strict=True)
-    ]
+    if batch.decoded and batch.objects is None:  # built from structs: objects only if needed
+        items = [
+            Inbound(
+                topic=None,
+                payload=b"",
+                received_at=now,
+                source="http",
+                decoded=d,
+                obj_of=partial(batch.message, i),
+            )
+            for i, d in enumerate(batch.decoded)
+        ]
+    else:
+        decoded = batch.decoded or [None] * len(batch)
+        items = [
+            Inbound(topic=None, payload=b"", received_at=now, source="http", obj=m, decoded=d)
+            for m, d in zip(batch.messages, decoded, strict=True)
+        ]
     out = pipeline.handle(session, items, layouts=batch.layouts, layouts_from=None)
-    response = _response(len(batch.messages), len(batch.layouts), out)
+    response = _response(len(batch), len(batch.layouts), out)
     if idempotency_key is not None:
         session.execute(
             insert_for(session)(IdempotencyRecord)

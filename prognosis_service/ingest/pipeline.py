@@ -54,6 +54,7 @@ from shared_schema import (
     peek_header,
     split_batch,
 )
+from shared_schema.codec import ReadableMessage, from_readable_struct
 
 __all__ = [
     "QUARANTINE_REASONS",
@@ -98,8 +99,10 @@ class Inbound:
 
     ``payload`` holds the raw bytes (MQTT) or the readable JSON form (HTTP); ``obj`` may carry
     the already-parsed JSON object of an HTTP entry to save parsing it twice, and ``decoded``
-    that object already decoded by :meth:`Pipeline.decode_readable`. ``retained`` marks a
-    retained MQTT message replayed on subscribe (it says nothing about the gateway being alive).
+    that object already decoded by :meth:`Pipeline.decode_readable`; ``obj_of``, where ``obj``
+    is None, gives that object when it is needed after all (an entry decoded without one, see
+    :meth:`Pipeline.decode_readable`). ``retained`` marks a retained MQTT message replayed on
+    subscribe (it says nothing about the gateway being alive).
     """
 
     topic: str | None
@@ -109,6 +112,14 @@ class Inbound:
     retained: bool = False
     obj: Any = None
     decoded: IndicatorMessage | None = None
+    obj_of: Callable[[], Any] | None = None
+
+
+def _obj(item: Inbound) -> Any:
+    """An HTTP entry's parsed JSON object."""
+    if item.obj is None and item.obj_of is not None:
+        return item.obj_of()
+    return item.obj
 
 
 @dataclass(frozen=True, slots=True)
@@ -291,8 +302,10 @@ class Pipeline:
     def decode_readable(
         self,
         session: Session,
-        objs: Sequence[Any],
+        objs: Sequence[Any] | Callable[[], Sequence[Any]],
         layouts: Sequence[IndicatorLayout] = (),
+        *,
+        typed: Sequence[ReadableMessage] | None = None,
     ) -> list[IndicatorMessage | None]:
         """Decode readable-form messages before the write transaction, in a read session.
 
@@ -302,21 +315,49 @@ class Pipeline:
         :meth:`handle` decodes it again and quarantines it with the reason, so a refusal and its
         raw form are recorded in one place. ``session`` only reads layouts, which are
         content-addressed: a layout found now is the same inside the write transaction.
+
+        ``typed`` holds the same entries decoded by msgspec into structs: those the codec's fast
+        path proves well formed are built from them, and only the others are decoded from
+        ``objs`` (which may then be a callable, asked for the list only if it is needed).
         """
         inline = {layout.digest: layout for layout in layouts}
 
         def lookup(digest: str) -> IndicatorLayout | None:
             return inline.get(digest) or self._committed_layout(session, digest)
 
-        out: list[IndicatorMessage | None] = []
-        for obj in objs:
-            try:
-                out.append(from_readable(obj, lookup) if isinstance(obj, dict) else None)
-            except SQLAlchemyError:
-                raise
-            except Exception:  # refused (or a bug): handle() records why
-                out.append(None)
-        return out
+        if typed is not None:
+            built = [self._build_one(m, lookup) for m in typed]
+            if not any(msg is None for msg in built):  # `in` would compare models with ==
+                return built
+            objs = objs() if callable(objs) else objs
+            return [
+                msg if msg is not None else self._decode_one(obj, lookup)
+                for msg, obj in zip(built, objs, strict=True)
+            ]
+        objs = objs() if callable(objs) else objs
+        return [self._decode_one(obj, lookup) for obj in objs]
+
+    @staticmethod
+    def _build_one(
+        m: ReadableMessage, lookup: Callable[[str], IndicatorLayout | None]
+    ) -> IndicatorMessage | None:
+        try:
+            return from_readable_struct(m, lookup)
+        except SQLAlchemyError:
+            raise
+        except Exception:  # a bug of the fast path must not refuse a batch: the dict decides
+            return None
+
+    @staticmethod
+    def _decode_one(
+        obj: Any, lookup: Callable[[str], IndicatorLayout | None]
+    ) -> IndicatorMessage | None:
+        try:
+            return from_readable(obj, lookup) if isinstance(obj, dict) else None
+        except SQLAlchemyError:
+            raise
+        except Exception:  # refused (or a bug): handle() records why
+            return None
 
     def readmit(self, session: Session, rows: Iterable[QuarantineRow]) -> list[tuple[int, str]]:
         """Try quarantined messages again; returns (id, "readmitted" or the reason still held)."""
@@ -490,7 +531,9 @@ class Pipeline:
     ) -> None:
         msg = item.decoded
         if msg is None:
-            obj = item.obj if item.obj is not None else item.payload
+            obj = _obj(item)
+            if obj is None:
+                obj = item.payload
             if not isinstance(obj, dict | bytes):
                 raise _RefusedError(
                     DecodeReason.MALFORMED.value,
@@ -825,7 +868,7 @@ class Pipeline:
             for index, item, raw, refused in work.quarantine:
                 out.quarantined.append(Quarantined(index, refused.reason, refused.detail))
                 if item.source == "http" and not raw:
-                    raw = json.dumps(item.obj, separators=(",", ":"), allow_nan=True).encode()
+                    raw = json.dumps(_obj(item), separators=(",", ":"), allow_nan=True).encode()
                 ident = refused.identity
                 rows.append(
                     {
@@ -923,8 +966,8 @@ def _insert_messages(session: Session, rows: list[tuple[Any, ...]]) -> list[tupl
       order; the only conversions are the two times and the UUID (SQLAlchemy's own bulk insert
       spent more time converting parameters than SQLite spent storing them).
     """
-    conn = session.connection()
-    if conn.dialect.name != "sqlite":
+    if session.get_bind().dialect.name != "sqlite":
+        conn = session.connection()
         dbapi = conn.connection.driver_connection
         assert dbapi is not None
         with dbapi.cursor() as cur:
@@ -935,28 +978,33 @@ def _insert_messages(session: Session, rows: list[tuple[Any, ...]]) -> list[tupl
                     copy.write_row(row)
             cur.execute(_PG_MOVE)
             return [tuple(r) for r in cur.fetchall()]
-    stored: list[tuple[str, str, int]] = []
+    # The parameters are made before the connection is asked for: that begins the transaction,
+    # which takes SQLite's write lock, held by one process at a time.
     ws, rec = _WINDOW_START, _RECEIVED_AT
-    dbapi = conn.connection.driver_connection  # inside the session's transaction
+    parts: list[tuple[str, list[Any]]] = []
+    for lo in range(0, len(rows), _SQLITE_CHUNK):
+        part = rows[lo : lo + _SQLITE_CHUNK]
+        flat: list[Any] = []
+        last_received: datetime | None = None
+        received = ""
+        for row in part:
+            if row[rec] is not last_received:  # HTTP: one arrival time for the batch
+                last_received = row[rec]
+                received = _sqlite_time(row[rec])
+            flat.append(row[0].hex)
+            flat += row[1:ws]
+            flat.append(_sqlite_time(row[ws]))
+            flat += row[ws + 1 : rec]
+            flat.append(received)
+        sql = f"INSERT INTO messages ({_COLS}) VALUES " + ", ".join([_SQLITE_ROW] * len(part))
+        parts.append((sql + _RETURNING, flat))
+    stored: list[tuple[str, str, int]] = []
+    dbapi = session.connection().connection.driver_connection  # in the session's transaction
     assert dbapi is not None
     cur = dbapi.cursor()
     try:
-        for lo in range(0, len(rows), _SQLITE_CHUNK):
-            part = rows[lo : lo + _SQLITE_CHUNK]
-            flat: list[Any] = []
-            last_received: datetime | None = None
-            received = ""
-            for row in part:
-                if row[rec] is not last_received:  # HTTP: one arrival time for the batch
-                    last_received = row[rec]
-                    received = _sqlite_time(row[rec])
-                flat.append(row[0].hex)
-                flat += row[1:ws]
-                flat.append(_sqlite_time(row[ws]))
-                flat += row[ws + 1 : rec]
-                flat.append(received)
-            sql = f"INSERT INTO messages ({_COLS}) VALUES " + ", ".join([_SQLITE_ROW] * len(part))
-            cur.execute(sql + _RETURNING, flat)
+        for sql, flat in parts:
+            cur.execute(sql, flat)
             stored += cur.fetchall()
     finally:
         cur.close()

@@ -15,6 +15,7 @@ from contextlib import contextmanager
 from typing import Any
 from unittest import mock
 
+import msgspec
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from pydantic import BaseModel
@@ -170,13 +171,8 @@ _OPERATING = ["shaft_speed_hz", "shaft_speed_source", "load_fraction", "flow_m3_
 _QUALITY = ["channel", "flags", "spikes_removed", "extra_key"]
 
 
-@settings(max_examples=600, suppress_health_check=[HealthCheck.too_slow])
-@given(layout_and_message(), st.data())
-def test_odd_readable_bodies_get_the_checked_outcome(
-    case: tuple[IndicatorLayout, IndicatorMessage], data: st.DataObject
-) -> None:
-    layout, msg = case
-    obj = json.loads(json.dumps(to_readable(msg, layout)))
+def _odd(obj: dict[str, Any], data: st.DataObject) -> dict[str, Any]:
+    """``obj`` with one to three keys or values changed, added or deleted."""
     for _ in range(data.draw(st.integers(1, 3))):
         where = data.draw(st.sampled_from(["top", "operating", "quality", "value", "delete"]))
         value = data.draw(_SPECIAL if data.draw(st.booleans()) else _ODD_VALUES)
@@ -194,8 +190,46 @@ def test_odd_readable_bodies_get_the_checked_outcome(
             )
         elif where == "delete":
             obj.pop(data.draw(st.sampled_from(_TOP)), None)
+    return obj
+
+
+@settings(max_examples=600, suppress_health_check=[HealthCheck.too_slow])
+@given(layout_and_message(), st.data())
+def test_odd_readable_bodies_get_the_checked_outcome(
+    case: tuple[IndicatorLayout, IndicatorMessage], data: st.DataObject
+) -> None:
+    layout, msg = case
+    obj = _odd(json.loads(json.dumps(to_readable(msg, layout))), data)
     known = {layout.digest: layout}
     fast = _outcome(lambda: from_readable(obj, known))
     with _checked_only():
         checked = _outcome(lambda: from_readable(obj, known))
     _assert_same_outcome(fast, checked)
+
+
+_STRUCT = msgspec.json.Decoder(codec.ReadableMessage)
+
+
+@settings(max_examples=600, suppress_health_check=[HealthCheck.too_slow])
+@given(layout_and_message(), st.data())
+def test_the_struct_path_builds_what_the_checked_path_builds_or_declines(
+    case: tuple[IndicatorLayout, IndicatorMessage], data: st.DataObject
+) -> None:
+    """HTTP ingest decodes bodies into ReadableMessage structs (msgspec) and builds messages
+    from them; where it declines (None) or msgspec refuses, the dict path decides."""
+    layout, msg = case
+    valid = json.loads(json.dumps(to_readable(msg, layout)))
+    known = {layout.digest: layout}
+    built = codec.from_readable_struct(_STRUCT.decode(json.dumps(valid)), known)
+    assert built is not None  # a well-formed message is never sent the long way
+    with _checked_only():
+        _assert_same(built, from_readable(valid, known))
+    obj = _odd(valid, data)
+    try:
+        struct = _STRUCT.decode(json.dumps(obj))
+    except (msgspec.MsgspecError, ValueError):
+        return  # the whole body then takes the dict path
+    fast = codec.from_readable_struct(struct, known)
+    if fast is not None:
+        with _checked_only():
+            _assert_same(fast, from_readable(obj, known))
