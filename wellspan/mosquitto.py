@@ -7,6 +7,7 @@ chaos run does), logs to a file in its folder.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import signal
@@ -25,6 +26,7 @@ __all__ = [
     "MosquittoBroker",
     "MosquittoMissingError",
     "free_port",
+    "free_ports",
     "mosquitto_installed",
 ]
 
@@ -41,11 +43,24 @@ def mosquitto_installed() -> bool:
     return Path(MOSQUITTO).exists()
 
 
+def free_ports(count: int) -> list[int]:
+    """``count`` distinct TCP ports on 127.0.0.1 that nothing listens on right now.
+
+    All sockets stay bound until every port is picked: ports asked for one at a time may come
+    back the same, since a port freed by the first pick is free again for the second.
+    """
+    with contextlib.ExitStack() as held:
+        ports = []
+        for _ in range(count):
+            s = held.enter_context(socket.socket())
+            s.bind(("127.0.0.1", 0))
+            ports.append(int(s.getsockname()[1]))
+        return ports
+
+
 def free_port() -> int:
     """A TCP port on 127.0.0.1 that nothing listens on right now."""
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
+    return free_ports(1)[0]
 
 
 @dataclass(frozen=True)

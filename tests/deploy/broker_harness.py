@@ -26,6 +26,7 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from tests.brokers import require_tool
+from wellspan.mosquitto import free_ports
 
 DEPLOY = Path(__file__).resolve().parents[2] / "deploy"
 MOSQUITTO = Path("/usr/sbin/mosquitto")
@@ -43,12 +44,6 @@ GATEWAYS = (
 
 def _need(binary: Path) -> None:
     require_tool(binary.exists(), f"{binary} not installed (Debian package mosquitto)")
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
 
 
 # --------------------------------------------------------------------------------------------
@@ -209,7 +204,7 @@ def make_broker(folder: Path, pki: Pki) -> Broker:
     acl_file = DEPLOY / "mosquitto" / "wellspan.acl"
     data_dir = folder / "data"
     data_dir.mkdir()
-    tls_port, plain_port = free_port(), free_port()
+    tls_port, plain_port = free_ports(2)
     config = folder / "mosquitto.conf"
     config.write_text(
         rewrite_broker_config(

@@ -28,18 +28,13 @@ from prognosis_service.alerts.ssrf import TargetPolicy
 from prognosis_service.store.engine import Store
 from prognosis_service.store.models import Base
 from tests.brokers import missing, require_tool
+from wellspan.mosquitto import free_port
 
 ROOT = Path(__file__).resolve().parents[3]
 DOCS = ROOT / "docs" / "webhooks.md"
 PG_ADMIN_URL = "postgresql+psycopg://root@127.0.0.1:5432/test"
 MOSQUITTO = Path("/usr/sbin/mosquitto")
 WAIT_S = 15.0  # hang guard for waits in tests, never a check
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
 
 
 # ---------------------------------------------------------------------------------- databases
