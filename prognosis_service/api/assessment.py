@@ -109,8 +109,9 @@ def get_health(
 @router.get(
     "/v1/assets/{asset_id}/diagnosis",
     response_model=DiagnosisOut,
-    description="The likely fault of the latest usable window, its confidence, every mode's "
-    "probability, the evidence in plain words and the indicators against their baseline. "
+    description="The likely fault over the latest usable windows (up to six of the last two "
+    "days, their probabilities averaged), its confidence, every mode's probability, and the "
+    "latest window's evidence in plain words and indicators against their baseline. "
     "Advisory: a diagnosis supports, and does not replace, inspection by qualified personnel.",
 )
 def get_diagnosis(

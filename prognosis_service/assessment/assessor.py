@@ -20,6 +20,9 @@ How an asset is assessed
   to the leading mode's health index, aggregated to one median per ``aggregate_h`` (the models
   want one value per period, and this bounds the cost of a refit), and the one with the higher
   evidence is kept (:func:`prognosis_service.prognosis.select_model`).
+* **Diagnosis.** Each of the latest ``diagnosis_windows`` usable windows is diagnosed against
+  its regime's baseline and their probabilities are averaged
+  (:func:`prognosis_service.diagnosis.pool_diagnoses`); one window's verdict alone is noisy.
 * **Threshold.** The health index is 1 at the failure level of its severity rules; when at least
   three failures of the same asset class are recorded, the median health index those units had
   at failure is used instead, taken over the failures recorded with the diagnosed failure mode
@@ -81,7 +84,7 @@ from prognosis_service.assessment.windows import (
     before_key,
     load_windows,
 )
-from prognosis_service.diagnosis import NOT_SURE, FaultClassifier, diagnose
+from prognosis_service.diagnosis import NOT_SURE, FaultClassifier, diagnose, pool_diagnoses
 from prognosis_service.health import NotEnoughDataError
 from prognosis_service.prognosis import (
     ExponentialDegradation,
@@ -130,6 +133,7 @@ class AssessmentConfig:
     lease_s: float = 300.0
     risk: float = 0.1
     rule_weight: float = 0.3
+    diagnosis_windows: int = 6
 
 
 @dataclass
@@ -752,7 +756,8 @@ def _indicator_table(
 
 
 def _diagnosis(run: _Run) -> dict[str, Any] | None:
-    """Diagnose the latest usable window against its regime's baseline."""
+    """Diagnose the latest ``diagnosis_windows`` usable windows (of the last two days), each
+    against its regime's baseline, and pool them; the indicators are the latest window's."""
     baseline = run.baseline
     seg = run.row.segment_start
     if baseline is None or seg is None or run.last_key is None:
@@ -764,18 +769,23 @@ def _diagnosis(run: _Run) -> dict[str, Any] | None:
         ~after_key(run.last_key),
         MessageRow.window_start >= run.last_key[0] - timedelta(days=2),
     )
-    usable = [w for w in recent if w.excluded_reason is None]
+    usable = [w for w in recent if w.excluded_reason is None][-run.config.diagnosis_windows :]
     if not usable:
         return None
-    w = usable[-1]
-    regime = baseline.score([w])[0].regime
-    d = diagnose(
-        w.by_name(),
-        baseline.baseline_for(regime),
-        classifier=run.classifier,
-        shaft_speed_hz=w.shaft_speed_hz,
-        rule_weight=run.config.rule_weight,
+    regimes = [s.regime for s in baseline.score(usable)]
+    d = pool_diagnoses(
+        [
+            diagnose(
+                u.by_name(),
+                baseline.baseline_for(r),
+                classifier=run.classifier,
+                shaft_speed_hz=u.shaft_speed_hz,
+                rule_weight=run.config.rule_weight,
+            )
+            for u, r in zip(usable, regimes, strict=True)
+        ]
     )
+    w, regime = usable[-1], regimes[-1]
     return {
         "at": w.window_start.isoformat(),
         "fault": d.fault,

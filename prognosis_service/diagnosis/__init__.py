@@ -13,7 +13,14 @@ they are not protective trips, and local codes and qualified personnel decide wh
 
 from prognosis_service.diagnosis.baseline import IndicatorBaseline
 from prognosis_service.diagnosis.classifier import FaultClassifier
-from prognosis_service.diagnosis.diagnose import ADVISORY, MODE_WORDS, NOT_SURE, Diagnosis, diagnose
+from prognosis_service.diagnosis.diagnose import (
+    ADVISORY,
+    MODE_WORDS,
+    NOT_SURE,
+    Diagnosis,
+    diagnose,
+    pool_diagnoses,
+)
 from prognosis_service.diagnosis.evidence import (
     BEARING_LINES,
     DIAGNOSED_MODES,
@@ -48,5 +55,6 @@ __all__ = [
     "gather_evidence",
     "label_maintenance_history",
     "mode_strengths",
+    "pool_diagnoses",
     "window_features",
 ]

@@ -7,7 +7,7 @@ machine.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 from prognosis_service.diagnosis.baseline import IndicatorBaseline
@@ -20,7 +20,7 @@ from prognosis_service.diagnosis.evidence import (
 )
 from prognosis_service.diagnosis.features import window_features
 
-__all__ = ["ADVISORY", "MODE_WORDS", "NOT_SURE", "Diagnosis", "diagnose"]
+__all__ = ["ADVISORY", "MODE_WORDS", "NOT_SURE", "Diagnosis", "diagnose", "pool_diagnoses"]
 
 NOT_SURE = "not_sure"
 """The answer when no fault mode (nor healthy) reaches the confidence asked for."""
@@ -179,6 +179,54 @@ def diagnose(
         evidence=tuple(evidence),
         candidates=candidates,
         summary=_summary(fault, confidence, candidates, pooled, evidence),
+    )
+
+
+def pool_diagnoses(diagnoses: Sequence[Diagnosis], *, min_confidence: float = 0.5) -> Diagnosis:
+    """One diagnosis from several consecutive windows' diagnoses, oldest first.
+
+    The pooled probabilities are the mean of the windows' probabilities (a linear opinion
+    pool over time), and the leading mode is named when its mean reaches ``min_confidence``,
+    as in :func:`diagnose`. One window alone is noisy: on the demo's slowest bearing defect the
+    latest window's verdict flipped to "not sure" in some runs while the windows around it
+    named the defect. The evidence is that of the latest window, strongest first.
+
+    Parameters
+    ----------
+    diagnoses : sequence of Diagnosis
+        At least one; the last is the latest window.
+    min_confidence : float, default 0.5
+        Pooled probability the leading mode needs, in [0, 1], to be named.
+
+    Returns
+    -------
+    Diagnosis
+    """
+    if not diagnoses:
+        raise ValueError("pool_diagnoses needs at least one diagnosis")
+    min_confidence = _check_unit("min_confidence", min_confidence)
+    latest = diagnoses[-1]
+    if len(diagnoses) == 1:
+        return latest
+    modes = list(dict.fromkeys(m for d in diagnoses for m in d.probabilities))
+    n = len(diagnoses)
+    pooled = {m: sum(d.probabilities.get(m, 0.0) for d in diagnoses) / n for m in modes}
+    ranked = sorted(pooled, key=lambda m: -pooled[m])
+    lead = ranked[0]
+    confidence = float(pooled[lead])
+    fault = lead if confidence >= min_confidence else NOT_SURE
+    candidates = (lead,) if fault != NOT_SURE else tuple(ranked[:2])
+    clf = [d.classifier_probabilities for d in diagnoses if d.classifier_probabilities is not None]
+    return Diagnosis(
+        fault=fault,
+        confidence=confidence,
+        probabilities={m: float(pooled[m]) for m in ranked},
+        classifier_probabilities=(
+            {m: sum(c.get(m, 0.0) for c in clf) / len(clf) for m in clf[-1]} if clf else None
+        ),
+        evidence=latest.evidence,
+        candidates=candidates,
+        summary=_summary(fault, confidence, candidates, pooled, list(latest.evidence)),
     )
 
 

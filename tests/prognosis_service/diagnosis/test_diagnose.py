@@ -8,10 +8,12 @@ import pytest
 from prognosis_service.diagnosis import (
     ADVISORY,
     NOT_SURE,
+    Diagnosis,
     FaultClassifier,
     IndicatorBaseline,
     diagnose,
     diagnostic_features,
+    pool_diagnoses,
 )
 
 NAMES = ("de_accel.order_1x", "de_accel.order_2x", "de_accel.env_bpfo")
@@ -84,3 +86,45 @@ def test_classifier_and_rules_combine() -> None:
 def test_bad_options_are_refused(kw: dict[str, float]) -> None:
     with pytest.raises(ValueError, match="must be a number in"):
         diagnose(values(), BASELINE, **kw)  # type: ignore[arg-type]
+
+
+def _said(probabilities: dict[str, float]) -> Diagnosis:
+    lead = max(probabilities, key=lambda m: probabilities[m])
+    fault = lead if probabilities[lead] >= 0.5 else NOT_SURE
+    return Diagnosis(fault, probabilities[lead], probabilities, None, (), (lead,), "")
+
+
+def test_pooled_windows_name_the_fault_one_window_was_not_sure_of() -> None:
+    sure = _said({"rolling_element": 0.7, "cage": 0.2, "healthy": 0.1})
+    unsure = _said({"rolling_element": 0.45, "cage": 0.4, "healthy": 0.15})
+    assert unsure.fault == NOT_SURE
+    d = pool_diagnoses([sure, unsure])
+    assert d.fault == "rolling_element"
+    assert d.confidence == pytest.approx(0.575)
+    assert d.probabilities == pytest.approx(
+        {"rolling_element": 0.575, "cage": 0.3, "healthy": 0.125}
+    )
+    assert sum(d.probabilities.values()) == pytest.approx(1.0)
+    assert list(d.probabilities) == ["rolling_element", "cage", "healthy"]  # best first
+
+
+def test_pooled_windows_that_disagree_are_not_sure_with_both_candidates() -> None:
+    one = _said({"imbalance": 0.6, "misalignment": 0.3, "healthy": 0.1})
+    other = _said({"imbalance": 0.3, "misalignment": 0.6, "healthy": 0.1})
+    d = pool_diagnoses([one, other])
+    assert d.fault == NOT_SURE
+    assert d.confidence == pytest.approx(0.45)
+    assert set(d.candidates) == {"imbalance", "misalignment"}
+    assert d.summary.startswith("Not sure")
+
+
+def test_pooling_keeps_the_latest_windows_evidence_and_needs_a_diagnosis() -> None:
+    older = diagnose(values(), BASELINE)
+    latest = diagnose(
+        values(bpfo=25.0), BASELINE, shaft_speed_hz=29.5, defect_orders={"bpfo": 3.58}
+    )
+    d = pool_diagnoses([older, latest])
+    assert d.evidence == latest.evidence and d.evidence
+    assert pool_diagnoses([latest]) is latest
+    with pytest.raises(ValueError, match="at least one"):
+        pool_diagnoses([])
