@@ -22,10 +22,13 @@ Alarm rule: a window is anomalous when its anomaly score exceeds its control lim
 raised when at least 4 of the last 6 windows (hours) are anomalous; it clears when that no
 longer holds. A false alarm is a raised alarm on a healthy pump; the rate is raised alarms /
 scored asset-years. Windows the assessment excludes (quality flags, no operating point) or the
-score refuses (indicators not computed, no baseline in the regime) give no verdict and count as
-not anomalous; their share is stated. The single-window rule (any anomalous window raises an
-alarm) is given for comparison, and so is the false-alarm rate when the score is fitted as the
-assessor fits it in service: on its first ``baseline_windows`` usable windows, not 30 days.
+score refuses (indicators not computed, no baseline in the regime, a shaft speed outside the
+speeds the baseline was learned at) give no verdict and count as not anomalous; their share is
+stated. Windows at new speeds are learned into the baseline as the assessor learns them
+(``extend_windows`` of them, while no degradation is detected). The single-window rule (any
+anomalous window raises an alarm) is given for comparison, and so is the false-alarm rate when
+the score is fitted as the assessor fits it in service: on its first ``baseline_windows``
+usable windows, not 30 days.
 
 Detection delay: pumps of the healthy set get a fault right after their baseline period (same
 pump, same seed, so the baseline is the same healthy data); the delay is the days from fault
@@ -56,7 +59,11 @@ from bench._pumps import IndicatorSeries, simulate_indicators
 from bench.harness import Figure, Report, Target
 from edge_agent.simulator import DEMO_START, FaultScenario, draw_life_days, saltbush_asset
 from prognosis_service.assessment.assessor import AssessmentConfig
-from prognosis_service.assessment.baseline import FittedBaseline, fit_baseline
+from prognosis_service.assessment.baseline import (
+    OUTSIDE_SPEED_RANGE,
+    FittedBaseline,
+    fit_baseline,
+)
 from prognosis_service.assessment.windows import Window
 from prognosis_service.health import NotEnoughDataError, RegimeBaseline, RegimeBinning
 
@@ -128,25 +135,63 @@ def windows_of(series: IndicatorSeries) -> list[Window]:
 
 
 def _service_verdicts(
-    fitted: FittedBaseline, windows: list[Window], reasons: Counter[str] | None = None
+    fitted: FittedBaseline,
+    windows: list[Window],
+    reasons: Counter[str] | None = None,
+    *,
+    base: list[Window] | None = None,
 ) -> NDArray:
     """Anomaly flag per window as the assessment scores it (no verdict counts as not anomalous).
 
     Windows the assessment excludes (quality flags, no operating point) are not scored; a
-    scored window without a score (no baseline in its regime, indicators missing) has no
-    verdict. Their reasons are counted into ``reasons``.
+    scored window without a score (no baseline in its regime, indicators missing, a speed the
+    baseline has not learned) has no verdict. Their reasons are counted into ``reasons``.
+
+    With ``base`` (the windows ``fitted`` was fitted on), windows outside the learned speeds are
+    learned into the baseline as the assessor does (``_Run._extend_baseline``): once
+    ``extend_windows`` of them wait (checked again every quarter of that) and fewer than
+    ``detect_fraction`` of the last ``detect_windows`` verdicts are anomalous, the baseline is
+    refitted on ``base`` plus every window learned so far and the rest is scored against it.
+    The waiting windows themselves stay without a verdict here: the assessor rescores them but
+    sends no alert readings for them, so they can raise no alarm.
     """
-    usable = [i for i, w in enumerate(windows) if w.excluded_reason is None]
     anomaly = np.zeros(len(windows), dtype=bool)
-    for i, sc in zip(usable, fitted.score([windows[i] for i in usable]), strict=True):
-        if sc.anomaly_score is not None and sc.control_limit is not None:
-            anomaly[i] = sc.anomaly_score > sc.control_limit
-        elif reasons is not None:
-            reasons[_reason_kind(sc.reason or "")] += 1
-    if reasons is not None:
-        for w in windows:
-            if w.excluded_reason is not None:
-                reasons[_reason_kind(w.excluded_reason)] += 1
+    scored: list[bool] = []
+    learned: list[Window] = []
+    pending: list[Window] = []
+    start = 0
+    while start < len(windows):
+        rest = range(start, len(windows))
+        usable = [i for i in rest if windows[i].excluded_reason is None]
+        verdicts = dict(zip(usable, fitted.score([windows[i] for i in usable]), strict=True))
+        start = len(windows)
+        for i in rest:
+            sc = verdicts.get(i)
+            if sc is None:
+                if reasons is not None:
+                    reasons[_reason_kind(windows[i].excluded_reason or "")] += 1
+                continue
+            if sc.anomaly_score is not None and sc.control_limit is not None:
+                anomaly[i] = sc.anomaly_score > sc.control_limit
+                scored.append(bool(anomaly[i]))
+                continue
+            if reasons is not None:
+                reasons[_reason_kind(sc.reason or "")] += 1
+            if base is None or not (sc.reason or "").startswith(OUTSIDE_SPEED_RANGE):
+                continue
+            pending.append(windows[i])
+            extra = len(pending) - CONFIG.extend_windows
+            recent = scored[-CONFIG.detect_windows :]
+            degrading = bool(recent) and np.mean(recent) >= CONFIG.detect_fraction
+            if extra < 0 or extra % max(1, CONFIG.extend_windows // 4) or degrading:
+                continue
+            try:
+                refit = _fit_windows([*base, *learned, *pending])
+            except (NotEnoughDataError, ValueError):
+                continue
+            fitted, learned, pending = refit, [*learned, *pending], []
+            start = i + 1
+            break
     return anomaly
 
 
@@ -155,11 +200,10 @@ def _reason_kind(reason: str) -> str:
     return reason.split(":")[0].rstrip("0123456789 ")
 
 
-def _fit_service(series: IndicatorSeries) -> FittedBaseline:
-    """The assessment's baseline, with its default configuration, on the usable windows."""
-    usable = [w for w in windows_of(series) if w.excluded_reason is None]
+def _fit_windows(windows: list[Window]) -> FittedBaseline:
+    """The assessment's baseline, with its default configuration, on these windows."""
     return fit_baseline(
-        usable,
+        windows,
         n_speed_bands=CONFIG.n_speed_bands,
         n_load_bands=CONFIG.n_load_bands,
         min_regime_windows=CONFIG.min_regime_windows,
@@ -167,29 +211,27 @@ def _fit_service(series: IndicatorSeries) -> FittedBaseline:
     )
 
 
-def _fit_as_assessor(series: IndicatorSeries) -> tuple[FittedBaseline, int]:
+def _fit_service(series: IndicatorSeries) -> tuple[FittedBaseline, list[Window]]:
+    """The assessment's baseline on the usable windows, and those windows."""
+    usable = [w for w in windows_of(series) if w.excluded_reason is None]
+    return _fit_windows(usable), usable
+
+
+def _fit_as_assessor(series: IndicatorSeries) -> tuple[FittedBaseline, list[Window]]:
     """The baseline the assessor itself would fit: its first ``baseline_windows`` usable windows,
     lengthened by a quarter of that while a regime lacks windows (as ``_Run._fit_baseline``).
 
-    Returns the fit and the number of windows it used.
+    Returns the fit and the windows it used.
     """
     usable = [w for w in windows_of(series) if w.excluded_reason is None]
     target = CONFIG.baseline_windows
     while True:
         try:
-            fitted = fit_baseline(
-                usable[:target],
-                n_speed_bands=CONFIG.n_speed_bands,
-                n_load_bands=CONFIG.n_load_bands,
-                min_regime_windows=CONFIG.min_regime_windows,
-                alpha=CONFIG.alpha,
-            )
+            return _fit_windows(usable[:target]), usable[:target]
         except (NotEnoughDataError, ValueError):
             if target >= len(usable):
                 raise
             target += max(1, CONFIG.baseline_windows // 4)
-            continue
-        return fitted, min(target, len(usable))
 
 
 def _vibration(series: IndicatorSeries) -> tuple[NDArray, NDArray]:
@@ -296,19 +338,19 @@ def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
         done += hours
         n_base = baseline_days * 24
         base, scored = healthy.head(n_base), healthy.tail(n_base)
-        fitted = _fit_service(base)
-        anomaly = _service_verdicts(fitted, windows_of(scored), no_verdict)
+        fitted, base_windows = _fit_service(base)
+        anomaly = _service_verdicts(fitted, windows_of(scored), no_verdict, base=base_windows)
         rule = alarm_starts(anomaly, K, N).size
         single = alarm_starts(anomaly, 1, 1).size
         scored_h += anomaly.size
         flagged += int(anomaly.sum())
         alarms_rule += rule
         alarms_single += single
-        short, n_short = _fit_as_assessor(base)
-        short_anomaly = _service_verdicts(short, windows_of(scored))
+        short, short_base = _fit_as_assessor(base)
+        short_anomaly = _service_verdicts(short, windows_of(scored), base=short_base)
         short_rule += alarm_starts(short_anomaly, K, N).size
         short_flagged += int(short_anomaly.sum())
-        short_used.append(n_short)
+        short_used.append(len(short_base))
         model = _fit_regime(base)
         cmp_anomaly, cmp_verdict = _regime_verdicts(model, scored)
         cmp_flagged += int(cmp_anomaly.sum())
@@ -332,9 +374,10 @@ def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
                 _k: int,
                 partial: IndicatorSeries,
                 f: FittedBaseline = fitted,
+                b: list[Window] = base_windows,
                 m: RegimeBaseline = model,
             ) -> bool:
-                if not k_of_n(_service_verdicts(f, windows_of(partial)), K, N).any():
+                if not k_of_n(_service_verdicts(f, windows_of(partial), base=b), K, N).any():
                     return False
                 return bool(k_of_n(_regime_verdicts(m, partial)[0], K, N).any())
 
@@ -345,7 +388,7 @@ def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
                 progress=tick(f"{pump.asset_id} {fault}"),
             )  # fmt: skip
             done += cap
-            flags = _service_verdicts(fitted, windows_of(series))
+            flags = _service_verdicts(fitted, windows_of(series), base=base_windows)
             delays[fault].append(_delay(series.times, flags, onset))
             cmp_delays[fault].append(
                 _delay(series.times, _regime_verdicts(model, series)[0], onset)

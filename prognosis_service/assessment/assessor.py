@@ -14,6 +14,9 @@ How an asset is assessed
   baseline: operating regimes (speed × load bands), the health index per failure mode
   (standardised against the same regime's baseline) and Hotelling's T² of the health-index
   vector with its Phase II F-distribution control limit (``alpha``).
+* **New speeds.** A window whose shaft speed is outside the speeds the baseline was learned at
+  has no verdict (a visible exclusion reason); once ``extend_windows`` such windows wait and no
+  degradation is detected, they are learned into the baseline and rescored.
 * **Degradation.** Detected when at least ``detect_fraction`` of the last ``detect_windows``
   scored windows are over the T² limit, or the leading failure mode's health index has risen to
   ``onset_health_index``. Then the exponential (Gebraeel et al. 2005) and Wiener models are fitted
@@ -66,6 +69,7 @@ from prognosis_service.alerts.rules import (
 )
 from prognosis_service.assessment.baseline import (
     BEARING_FAULTS,
+    OUTSIDE_SPEED_RANGE,
     FittedBaseline,
     Score,
     finite_or_none,
@@ -134,6 +138,7 @@ class AssessmentConfig:
     risk: float = 0.1
     rule_weight: float = 0.3
     diagnosis_windows: int = 6
+    extend_windows: int = 72
 
 
 @dataclass
@@ -319,9 +324,7 @@ class _Run:
     @property
     def baseline_end(self) -> WindowKey | None:
         end = self.state.get("baseline_end")
-        if not end:
-            return None
-        return (datetime.fromisoformat(end[0]), uuid.UUID(end[1]))
+        return _key(end) if end else None
 
     def reset_segment(self, start: datetime | None) -> None:
         self._write_points()
@@ -395,17 +398,39 @@ class _Run:
                 )
             )
 
-    def score_and_store(self, windows: Sequence[Window]) -> None:
+    def score_and_store(self, windows: Sequence[Window], *, readings: bool = True) -> None:
+        """Score ``windows`` (in order) against the baseline and buffer their health points.
+
+        Windows outside the baseline's speed range get no verdict and are kept as candidates;
+        once ``extend_windows`` of them are waiting, the baseline is extended with them
+        (:meth:`_extend_baseline`) and the rest of ``windows`` is scored against the new one.
+        ``readings=False`` (a rescoring of windows already alerted on) emits no alert readings.
+        """
         assert self.baseline is not None
-        usable = [w for w in windows if w.excluded_reason is None]
-        scores = dict(zip((w.key for w in usable), self.baseline.score(usable), strict=True))
-        for w in windows:
-            reason = w.excluded_reason
-            score = scores.get(w.key)
-            if reason is None and score is not None:
-                reason = score.reason
-            self._add_point(w, score if reason is None else None, reason)
-            self._window_readings(w, score if reason is None else None)
+        remaining = list(windows)
+        while remaining:
+            usable = [w for w in remaining if w.excluded_reason is None]
+            scores = dict(zip((w.key for w in usable), self.baseline.score(usable), strict=True))
+            done = len(remaining)
+            for i, w in enumerate(remaining):
+                reason = w.excluded_reason
+                score = scores.get(w.key)
+                if reason is None and score is not None:
+                    reason = score.reason
+                self._add_point(w, score if reason is None else None, reason)
+                if readings:
+                    self._window_readings(w, score if reason is None else None)
+                if readings and reason is not None and reason.startswith(OUTSIDE_SPEED_RANGE):
+                    pending = self.state.setdefault("outside_speed_windows", [])
+                    pending.append(w.message_id.hex)
+                    self.state["outside_speed_last"] = [
+                        w.window_start.isoformat(),
+                        w.message_id.hex,
+                    ]
+                    if self._extend_baseline():
+                        done = i + 1
+                        break
+            remaining = remaining[done:]
         self._write_points()
 
     # -- the baseline -----------------------------------------------------------------------
@@ -431,13 +456,13 @@ class _Run:
         self._write_points()
         return rest
 
-    def _fit_baseline(self, last: Window) -> None:
-        cfg = self.config
+    def _baseline_rows(self, last: WindowKey) -> list[Window]:
+        """The segment's first ``target`` usable windows up to ``last``: its healthy baseline."""
         seg = self.row.segment_start
         assert seg is not None
         conds = [
             MessageRow.window_start >= seg,
-            ~after_key(last.key),
+            ~after_key(last),
             MessageRow.id <= self.snapshot_id,  # what later runs count as seen
         ]
         rows = [
@@ -445,16 +470,24 @@ class _Run:
             for w in load_windows(self.session, self.asset.asset_id, *conds)
             if w.excluded_reason is None
         ]
+        return rows[: int(self.state.get("target", self.config.baseline_windows))]
+
+    def _fit(self, rows: Sequence[Window]) -> FittedBaseline:
+        cfg = self.config
+        return fit_baseline(
+            rows,
+            n_speed_bands=cfg.n_speed_bands,
+            n_load_bands=cfg.n_load_bands,
+            min_regime_windows=cfg.min_regime_windows,
+            alpha=cfg.alpha,
+        )
+
+    def _fit_baseline(self, last: Window) -> None:
+        cfg = self.config
+        rows = self._baseline_rows(last.key)
         target = int(self.state.get("target", cfg.baseline_windows))
-        rows = rows[:target]
         try:
-            fitted = fit_baseline(
-                rows,
-                n_speed_bands=cfg.n_speed_bands,
-                n_load_bands=cfg.n_load_bands,
-                min_regime_windows=cfg.min_regime_windows,
-                alpha=cfg.alpha,
-            )
+            fitted = self._fit(rows)
         except (NotEnoughDataError, ValueError) as exc:
             # Not enough windows in one regime yet: keep learning with a longer baseline.
             self.state["baseline_note"] = str(exc)
@@ -464,6 +497,105 @@ class _Run:
         self.state["baseline"] = fitted.to_state()
         self.state["baseline_end"] = [last.window_start.isoformat(), last.message_id.hex]
         self.score_and_store(rows)
+
+    def _extend_baseline(self) -> bool:
+        """Learn the waiting out-of-range windows into the baseline, when there are enough.
+
+        A pump's duty drifts with the season (and a new duty point may last for good); without
+        this, every window at the new speeds would stay without a verdict. The candidates are
+        learned as healthy only while no degradation is detected (fewer than ``detect_fraction``
+        of the last ``detect_windows`` scored windows over the limit), since a defect growing
+        while the speed drifts would otherwise become part of the baseline; until then they keep
+        their no-verdict reason. The refit takes the baseline windows and every window learned
+        so far; the candidates' points are rescored against it (no alert readings for them).
+        Returns True when the baseline changed.
+        """
+        cfg = self.config
+        pending: list[str] = self.state.get("outside_speed_windows", [])
+        extra = len(pending) - cfg.extend_windows
+        if extra < 0 or extra % max(1, cfg.extend_windows // 4) or self._degrading():
+            return False
+        end = self.baseline_end
+        assert end is not None
+        learned = [*self.state.get("learned_speed_windows", []), *pending]
+        aid = self.asset.asset_id
+        candidates = _windows_by_id(self.session, aid, pending)
+        rows = self._baseline_rows(end) + _windows_by_id(self.session, aid, learned)
+        try:
+            fitted = self._fit(rows)
+        except (NotEnoughDataError, ValueError):
+            return False
+        self._write_points()
+        self.session.execute(
+            delete(HealthPointRow).where(
+                HealthPointRow.asset_id == aid,
+                HealthPointRow.message_id.in_([uuid.UUID(m) for m in pending]),
+            )
+        )
+        assert fitted.speed_range_hz is not None
+        self.baseline = fitted
+        self.state["baseline"] = fitted.to_state()
+        self.state["learned_speed_windows"] = learned
+        self.state["outside_speed_windows"] = []
+        last = candidates[-1]
+        self.state.setdefault("extensions", []).append(
+            {
+                "at": last.window_start.isoformat(),
+                "key": [last.window_start.isoformat(), last.message_id.hex],
+                "windows": len(candidates),
+                "speed_range_hz": list(fitted.speed_range_hz),
+            }
+        )
+        self.score_and_store(candidates, readings=False)
+        return True
+
+    def _late_in_place(self, late: Sequence[Window], end: WindowKey | None) -> bool:
+        """Whether late windows can be scored where they are, without reassessing the segment.
+
+        Not when one falls in the baseline period, or before the last extension of the baseline
+        (it would have been scored, or learned, against another baseline), or at a speed outside
+        the baseline's (in window order it might have brought an extension forward), or before a
+        waiting out-of-range window once an extension has been weighed (it would have been one
+        of the windows :meth:`_degrading` looked at).
+        """
+        if end is None or self.baseline is None:
+            return False
+        first = min(w.key for w in late)
+        if first <= end:
+            return False
+        extensions = self.state.get("extensions") or []
+        if extensions and first <= _key(extensions[-1]["key"]):
+            return False
+        weighed = len(self.state.get("outside_speed_windows", [])) >= self.config.extend_windows
+        if weighed and first <= _key(self.state["outside_speed_last"]):
+            return False
+        return not any(
+            w.excluded_reason is None
+            and self.baseline.outside_speed_range(w.shaft_speed_hz) is not None
+            for w in late
+        )
+
+    def _degrading(self) -> bool:
+        """Whether the latest scored windows of the segment show a sustained anomaly."""
+        self._write_points()
+        recent = self.session.execute(
+            select(HealthPointRow.anomaly_score, HealthPointRow.control_limit)
+            .where(
+                HealthPointRow.asset_id == self.asset.asset_id,
+                HealthPointRow.segment_start == self.row.segment_start,
+                HealthPointRow.anomaly_score.is_not(None),
+            )
+            .order_by(HealthPointRow.window_start.desc(), HealthPointRow.message_id.desc())
+            .limit(self.config.detect_windows)
+        ).all()
+        if not recent:
+            return False
+        over = sum(
+            1
+            for score, limit in recent
+            if score is not None and limit is not None and score > limit
+        )
+        return over / len(recent) >= self.config.detect_fraction
 
     # -- processing ---------------------------------------------------------------------------
     def _behind_cursor(self, seg: datetime, last: WindowKey) -> list[Window] | None:
@@ -509,7 +641,7 @@ class _Run:
         if last is not None:
             missed = self._behind_cursor(seg, last)
             end = self.baseline_end
-            if missed is None or (missed and (end is None or min(w.key for w in missed) <= end)):
+            if missed is None or (missed and not self._late_in_place(missed, end)):
                 self.reset_segment(seg)
             elif missed:
                 self.score_and_store(missed)
@@ -527,7 +659,7 @@ class _Run:
             )
             if late:
                 end = self.baseline_end
-                if end is None or min(w.key for w in late) <= end:
+                if not self._late_in_place(late, end):
                     self.reset_segment(seg)
                 else:
                     self.score_and_store(late)
@@ -607,6 +739,20 @@ def _segment_points(
         stmt = stmt.where(HealthPointRow.window_start < hi)
     stmt = stmt.order_by(HealthPointRow.window_start, HealthPointRow.message_id)
     return [(r[0], r[1], r[2], r[3]) for r in session.execute(stmt)]
+
+
+def _key(stored: Sequence[str]) -> WindowKey:
+    """A window key kept in the state as ``[window start ISO, message id hex]``."""
+    return (datetime.fromisoformat(stored[0]), uuid.UUID(stored[1]))
+
+
+def _windows_by_id(session: Session, asset_id: str, message_ids: Sequence[str]) -> list[Window]:
+    """The asset's windows with these message ids (hex), in window order."""
+    if not message_ids:
+        return []
+    return load_windows(
+        session, asset_id, MessageRow.message_id.in_([uuid.UUID(m) for m in message_ids])
+    )
 
 
 def _fleet(
@@ -1022,6 +1168,13 @@ def assess_asset(
             ):
                 session.flush()
                 result = _summarise(run, events)
+                waiting = len(run.state.get("outside_speed_windows", []))
+                if waiting:
+                    row.message += (
+                        f"; {waiting} windows at speeds outside the baseline's have no verdict "
+                        f"(learned into it after {run.config.extend_windows}, unless the pump "
+                        "is degrading)"
+                    )
                 row.result = result
                 row.summary = fleet_summary(result)
                 _final_readings(run, result)

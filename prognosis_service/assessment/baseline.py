@@ -24,6 +24,7 @@ from prognosis_service.health import (
 __all__ = [
     "ASSESSMENT_FAILURE_MODES",
     "BEARING_FAULTS",
+    "OUTSIDE_SPEED_RANGE",
     "FittedBaseline",
     "Score",
     "fit_baseline",
@@ -45,6 +46,18 @@ has gone. The bearing health index therefore follows the high-band r.m.s., which
 defect to the end; its failure level, 20 times (26 dB) over the regime's baseline, is common
 practice, no source. The other modes are :data:`DEFAULT_FAILURE_MODES`. The four bearing faults
 share one index, so the T² vector has no duplicated columns."""
+
+
+OUTSIDE_SPEED_RANGE = "outside the speed range of the healthy baseline"
+"""The start of the reason a window gets no verdict when its shaft speed is outside the speeds
+the baseline was learned at (the full reason gives the speed and the range)."""
+
+
+SPEED_MARGIN = 0.01
+"""How far (as a fraction of the speed) beyond the baseline's lowest and highest shaft speed a
+window is still judged: a drive held at one speed reads a little above or below it from window
+to window. Our choice; on the seasonal-drift pumps of the anomaly benchmark 0-1 % made no
+difference to the false alarms."""
 
 
 def mode_of_fault(fault: str | None) -> str | None:
@@ -75,6 +88,14 @@ class FittedBaseline:
     each health index is already standardised against the same regime's healthy baseline, so
     moving to another speed or load band alone does not move the score, and ``p`` (the number of
     failure modes) stays small next to the number of baseline windows.
+
+    A window whose shaft speed lies outside ``speed_range_hz`` (the lowest and highest speed of
+    the baseline's windows, widened by :data:`SPEED_MARGIN`) gets no verdict: the regime bands
+    only span the learned speeds, and vibration grows with speed, so such a window would be
+    judged against its nearest band's slower (or faster) healthy level. On simulated healthy
+    pumps whose duty drifted with the season, 74-97 % of the windows beyond the learned speeds
+    were over the control limit (3-8 % within them). The assessor learns such speeds into the
+    baseline once enough windows there have been seen (``AssessmentConfig.extend_windows``).
     """
 
     names: tuple[str, ...]
@@ -83,6 +104,19 @@ class FittedBaseline:
     indicator_baselines: dict[int, IndicatorBaseline]
     pooled_baseline: IndicatorBaseline
     n_windows: int
+    speed_range_hz: tuple[float, float] | None = None  # None: fitted before the range was kept
+
+    def outside_speed_range(self, speed_hz: float | None) -> str | None:
+        """The no-verdict reason for a window at ``speed_hz``, or None when it is inside."""
+        if self.speed_range_hz is None or speed_hz is None or not math.isfinite(speed_hz):
+            return None
+        lo, hi = self.speed_range_hz
+        if lo * (1.0 - SPEED_MARGIN) <= speed_hz <= hi * (1.0 + SPEED_MARGIN):
+            return None
+        return (
+            f"{OUTSIDE_SPEED_RANGE}: {speed_hz:.2f} Hz, the baseline was learned at "
+            f"{lo:.2f}-{hi:.2f} Hz"
+        )
 
     @property
     def modes(self) -> list[str]:
@@ -120,7 +154,10 @@ class FittedBaseline:
         out = []
         for i in range(len(windows)):
             regime = int(regimes[i]) if regimes[i] >= 0 else None
-            if not finite[i]:
+            outside = self.outside_speed_range(windows[i].shaft_speed_hz)
+            if outside is not None:
+                out.append(Score(regime, None, None, None, outside))
+            elif not finite[i]:
                 missing = [
                     hi.indicator_names_[j] for j, c in enumerate(need) if not np.isfinite(X[i, c])
                 ]
@@ -158,6 +195,7 @@ class FittedBaseline:
             },
             "pooled_baseline": self.pooled_baseline.to_state(),
             "n_windows": self.n_windows,
+            "speed_range_hz": None if self.speed_range_hz is None else list(self.speed_range_hz),
         }
 
     @classmethod
@@ -172,6 +210,11 @@ class FittedBaseline:
             },
             pooled_baseline=IndicatorBaseline.from_state(state["pooled_baseline"]),
             n_windows=int(state["n_windows"]),
+            speed_range_hz=(
+                None
+                if state.get("speed_range_hz") is None
+                else (float(state["speed_range_hz"][0]), float(state["speed_range_hz"][1]))
+            ),
         )
 
 
@@ -232,7 +275,9 @@ def fit_baseline(
                 names, X[rows], shaft_speed_hz=speeds[rows]
             )
     pooled = IndicatorBaseline.from_windows(names, X, shaft_speed_hz=speeds)
-    return FittedBaseline(names, hi, t2, by_regime, pooled, len(windows))
+    learned = speeds[complete & np.isfinite(speeds)]
+    speed_range = (float(learned.min()), float(learned.max())) if learned.size else None
+    return FittedBaseline(names, hi, t2, by_regime, pooled, len(windows), speed_range)
 
 
 def finite_or_none(x: float | None) -> float | None:

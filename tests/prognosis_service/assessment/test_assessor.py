@@ -7,6 +7,7 @@ extractor, encoded and stored by the service pipeline; every check is on behavio
 from __future__ import annotations
 
 import random
+import re
 import uuid
 from datetime import UTC, datetime, timedelta
 
@@ -32,6 +33,7 @@ from prognosis_service.assessment.assessor import (
     assess_asset,
     model_from_state,
 )
+from prognosis_service.assessment.baseline import OUTSIDE_SPEED_RANGE
 from prognosis_service.assessment.diagnosis_model import load_classifier
 from prognosis_service.assessment.models import (
     AssetAssessment,
@@ -101,8 +103,12 @@ def test_a_healthy_pump_stays_below_its_limit(store: Store) -> None:
     row = _row(store, "MAL-P1")
     assert row.status == "no_degradation", row.message
     assert row.result is not None and row.result["model_state"] is None
-    scored = [p for p in _points(store, "MAL-P1") if p.anomaly_score is not None]
-    assert len(scored) == len(msgs)  # every window scored (the baseline ones too)
+    points = _points(store, "MAL-P1")
+    scored = [p for p in points if p.anomaly_score is not None]
+    # Every window scored (the baseline ones too) but the few at speeds the baseline never saw.
+    outside = [p for p in points if (p.excluded_reason or "").startswith(OUTSIDE_SPEED_RANGE)]
+    assert len(scored) + len(outside) == len(points) == len(msgs)
+    assert len(outside) <= 0.05 * len(msgs), len(outside)
     over = np.mean([p.anomaly_score > p.control_limit for p in scored])  # type: ignore[operator]
     # alpha = 0.01 per window; the baseline windows are in-sample. Loose: under 5 %.
     assert over < 0.05, over
@@ -192,8 +198,16 @@ def test_late_data_refits_to_the_in_order_result(store: Store, tmp_path: object)
         )
         for m in msgs
     ]
+    # Late windows at a speed outside the baseline's force a reassessment too (in window order
+    # they might have brought an extension of the baseline forward): leave them in order here.
+    outside = {
+        p.window_start
+        for p in _points(store, "MAL-P2")
+        if (p.excluded_reason or "").startswith(OUTSIDE_SPEED_RANGE)
+    }
     rng = random.Random(5)
-    late_after = set(rng.sample(range(80, len(copy)), 30))
+    in_range = [i for i in range(80, len(copy)) if copy[i].window_start not in outside]
+    late_after = set(rng.sample(in_range, 30))
     late_inside = set(rng.sample(range(5, 40), 5))
     first = [m for i, m in enumerate(copy) if i not in late_after | late_inside]
     store_messages(store, layout, first)
@@ -227,7 +241,9 @@ def test_flagged_windows_are_excluded_visibly(store: Store) -> None:
     store_messages(store, layout, changed)
     outcome = assess_asset(store, "MAL-P1", classifier=load_classifier())
     points = _points(store, "MAL-P1")
-    excluded = [p for p in points if p.excluded]
+    excluded = [
+        p for p in points if p.excluded and not p.excluded_reason.startswith(OUTSIDE_SPEED_RANGE)
+    ]
     assert [p.window_start for p in excluded] == [msgs[i].window_start for i in sorted(flagged)]
     assert all(p.excluded_reason == "quality flags: de_accel clipped" for p in excluded)
     assert all(p.anomaly_score is None and p.health is None for p in excluded)
@@ -398,3 +414,69 @@ def test_a_daily_regime_offset_does_not_hide_a_steady_rise_from_the_fit() -> Non
         assert fitted.trend_z_ > 1.645  # one-sided 5 % (the models' default trend test)
         q10, q50, q90 = fitted.time_to_failure_quantiles((0.1, 0.5, 0.9))
         assert 0 < q10 < q50 < q90
+
+
+def test_speeds_the_baseline_never_saw_wait_without_a_verdict_then_are_learned(
+    store: Store,
+) -> None:
+    # The baseline runs slow; then the duty moves to a speed outside it and stays there (the
+    # way a pump's duty drifts with the season). Vibration grows with speed (common practice,
+    # no source), so judging the new speed against the slow baseline would raise false alarms.
+    cfg = AssessmentConfig()
+    n_base = cfg.baseline_windows
+    _, slow = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                       constant_speed_rpm=1250.0)  # fmt: skip
+    layout, fast = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
+    msgs = [*slow[:n_base], *fast[n_base : n_base + cfg.extend_windows + 8]]
+    waiting = cfg.extend_windows - 12
+    register(store, "MAL-P1")
+    store_messages(store, layout, msgs[: n_base + waiting])
+    _assess_all(store, "MAL-P1")
+    later = [p for p in _points(store, "MAL-P1") if p.window_start >= msgs[n_base].window_start]
+    assert len(later) == waiting
+    assert all(p.excluded and p.anomaly_score is None for p in later)
+    assert all(p.excluded_reason.startswith(OUTSIDE_SPEED_RANGE) for p in later)
+    said = re.search(
+        r": ([\d.]+) Hz, the baseline was learned at ([\d.]+)-([\d.]+) Hz", later[0].excluded_reason
+    )
+    assert said is not None, later[0].excluded_reason
+    speed, lo, hi = map(float, said.groups())  # 1700 rpm less slip; 1250 rpm less slip
+    assert 27.5 < speed < 1700 / 60 and 20.0 < lo <= hi < 1250 / 60
+    assert _row(store, "MAL-P1").state.get("extensions") is None
+
+    store_messages(store, layout, msgs[n_base + waiting :])
+    _assess_all(store, "MAL-P1")
+    row = _row(store, "MAL-P1")
+    assert row.status == "no_degradation", row.message
+    (extension,) = row.state["extensions"]
+    assert extension["windows"] == cfg.extend_windows
+    lo, hi = extension["speed_range_hz"]
+    assert lo < 1250 / 60 < 1700 / 60 <= hi * 1.01
+    points = _points(store, "MAL-P1")
+    assert len(points) == len(msgs)  # the waiting windows were rescored, not added twice
+    later = [p for p in points if p.window_start >= msgs[n_base].window_start]
+    assert all(p.anomaly_score is not None for p in later)
+    assert np.mean([p.anomaly_score > p.control_limit for p in later]) < 0.05  # type: ignore[operator]
+
+
+def test_a_degrading_pump_does_not_learn_new_speeds_into_its_baseline(store: Store) -> None:
+    # The outer race defect grows at the slow speed until it is detected; then the speed moves
+    # outside the baseline. Learning those windows as healthy would hide the defect.
+    cfg = AssessmentConfig()
+    switch = 160  # window index at day 20, the defect well grown (onset day 8)
+    _, slow = simulate("MAL-P2", OUTER, seed=3, hours=24 * 33, every_h=EVERY_H,
+                       constant_speed_rpm=1250.0)  # fmt: skip
+    layout, fast = simulate("MAL-P2", OUTER, seed=3, hours=24 * 33, every_h=EVERY_H,
+                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
+    msgs = [*slow[:switch], *fast[switch : switch + cfg.extend_windows + 24]]
+    register(store, "MAL-P2")
+    store_messages(store, layout, msgs)
+    _assess_all(store, "MAL-P2")
+    row = _row(store, "MAL-P2")
+    assert "extensions" not in row.state
+    later = [p for p in _points(store, "MAL-P2") if p.window_start >= msgs[switch].window_start]
+    assert len(later) == cfg.extend_windows + 24
+    assert all(p.excluded_reason.startswith(OUTSIDE_SPEED_RANGE) for p in later)
+    assert len(row.state["outside_speed_windows"]) == len(later)
+    assert f"{len(later)} windows at speeds outside the baseline's have no verdict" in row.message
