@@ -59,11 +59,7 @@ from bench._pumps import IndicatorSeries, simulate_indicators
 from bench.harness import Figure, Report, Target
 from edge_agent.simulator import DEMO_START, FaultScenario, draw_life_days, saltbush_asset
 from prognosis_service.assessment.assessor import AssessmentConfig
-from prognosis_service.assessment.baseline import (
-    OUTSIDE_SPEED_RANGE,
-    FittedBaseline,
-    fit_baseline,
-)
+from prognosis_service.assessment.baseline import OUTSIDE_SPEED_RANGE, FittedBaseline
 from prognosis_service.assessment.windows import Window
 from prognosis_service.health import NotEnoughDataError, RegimeBaseline, RegimeBinning
 
@@ -186,7 +182,7 @@ def _service_verdicts(
             if extra < 0 or extra % max(1, CONFIG.extend_windows // 4) or degrading:
                 continue
             try:
-                refit = _fit_windows([*base, *learned, *pending])
+                refit = CONFIG.fit_baseline([*base, *learned, *pending])
             except (NotEnoughDataError, ValueError):
                 continue
             fitted, learned, pending = refit, [*learned, *pending], []
@@ -200,21 +196,10 @@ def _reason_kind(reason: str) -> str:
     return reason.split(":")[0].rstrip("0123456789 ")
 
 
-def _fit_windows(windows: list[Window]) -> FittedBaseline:
-    """The assessment's baseline, with its default configuration, on these windows."""
-    return fit_baseline(
-        windows,
-        n_speed_bands=CONFIG.n_speed_bands,
-        n_load_bands=CONFIG.n_load_bands,
-        min_regime_windows=CONFIG.min_regime_windows,
-        alpha=CONFIG.alpha,
-    )
-
-
 def _fit_service(series: IndicatorSeries) -> tuple[FittedBaseline, list[Window]]:
     """The assessment's baseline on the usable windows, and those windows."""
     usable = [w for w in windows_of(series) if w.excluded_reason is None]
-    return _fit_windows(usable), usable
+    return CONFIG.fit_baseline(usable), usable
 
 
 def _fit_as_assessor(series: IndicatorSeries) -> tuple[FittedBaseline, list[Window]]:
@@ -227,7 +212,7 @@ def _fit_as_assessor(series: IndicatorSeries) -> tuple[FittedBaseline, list[Wind
     target = CONFIG.baseline_windows
     while True:
         try:
-            return _fit_windows(usable[:target]), usable[:target]
+            return CONFIG.fit_baseline(usable[:target]), usable[:target]
         except (NotEnoughDataError, ValueError):
             if target >= len(usable):
                 raise

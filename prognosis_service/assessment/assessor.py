@@ -140,6 +140,16 @@ class AssessmentConfig:
     diagnosis_windows: int = 6
     extend_windows: int = 72
 
+    def fit_baseline(self, windows: Sequence[Window]) -> FittedBaseline:
+        """The healthy baseline these settings fit on ``windows`` (regimes, α)."""
+        return fit_baseline(
+            windows,
+            n_speed_bands=self.n_speed_bands,
+            n_load_bands=self.n_load_bands,
+            min_regime_windows=self.min_regime_windows,
+            alpha=self.alpha,
+        )
+
 
 @dataclass
 class AssessmentOutcome:
@@ -472,22 +482,12 @@ class _Run:
         ]
         return rows[: int(self.state.get("target", self.config.baseline_windows))]
 
-    def _fit(self, rows: Sequence[Window]) -> FittedBaseline:
-        cfg = self.config
-        return fit_baseline(
-            rows,
-            n_speed_bands=cfg.n_speed_bands,
-            n_load_bands=cfg.n_load_bands,
-            min_regime_windows=cfg.min_regime_windows,
-            alpha=cfg.alpha,
-        )
-
     def _fit_baseline(self, last: Window) -> None:
         cfg = self.config
         rows = self._baseline_rows(last.key)
         target = int(self.state.get("target", cfg.baseline_windows))
         try:
-            fitted = self._fit(rows)
+            fitted = self.config.fit_baseline(rows)
         except (NotEnoughDataError, ValueError) as exc:
             # Not enough windows in one regime yet: keep learning with a longer baseline.
             self.state["baseline_note"] = str(exc)
@@ -522,7 +522,7 @@ class _Run:
         candidates = _windows_by_id(self.session, aid, pending)
         rows = self._baseline_rows(end) + _windows_by_id(self.session, aid, learned)
         try:
-            fitted = self._fit(rows)
+            fitted = self.config.fit_baseline(rows)
         except (NotEnoughDataError, ValueError):
             return False
         self._write_points()
