@@ -176,10 +176,8 @@ def _service_verdicts(
             if base is None or not (sc.reason or "").startswith(OUTSIDE_SPEED_RANGE):
                 continue
             pending.append(windows[i])
-            extra = len(pending) - CONFIG.extend_windows
             recent = scored[-CONFIG.detect_windows :]
-            degrading = bool(recent) and np.mean(recent) >= CONFIG.detect_fraction
-            if extra < 0 or extra % max(1, CONFIG.extend_windows // 4) or degrading:
+            if not CONFIG.extension_due(len(pending), float(np.mean(recent)) if recent else 0.0):
                 continue
             try:
                 refit = CONFIG.fit_baseline([*base, *learned, *pending])

@@ -140,6 +140,17 @@ class AssessmentConfig:
     diagnosis_windows: int = 6
     extend_windows: int = 72
 
+    def extension_due(self, waiting: int, share_over_limit: float) -> bool:
+        """Whether ``waiting`` windows at new speeds are learned into the baseline now.
+
+        At ``extend_windows`` of them and every quarter of that after, while fewer than
+        ``detect_fraction`` of the last ``detect_windows`` scored windows are over the limit.
+        """
+        extra = waiting - self.extend_windows
+        if extra < 0 or extra % max(1, self.extend_windows // 4):
+            return False
+        return share_over_limit < self.detect_fraction
+
     def fit_baseline(self, windows: Sequence[Window]) -> FittedBaseline:
         """The healthy baseline these settings fit on ``windows`` (regimes, α)."""
         return fit_baseline(
@@ -432,11 +443,7 @@ class _Run:
                     self._window_readings(w, score if reason is None else None)
                 if readings and reason is not None and reason.startswith(OUTSIDE_SPEED_RANGE):
                     pending = self.state.setdefault("outside_speed_windows", [])
-                    pending.append(w.message_id.hex)
-                    self.state["outside_speed_last"] = [
-                        w.window_start.isoformat(),
-                        w.message_id.hex,
-                    ]
+                    pending.append([w.window_start.isoformat(), w.message_id.hex])
                     if self._extend_baseline():
                         done = i + 1
                         break
@@ -510,10 +517,8 @@ class _Run:
         so far; the candidates' points are rescored against it (no alert readings for them).
         Returns True when the baseline changed.
         """
-        cfg = self.config
-        pending: list[str] = self.state.get("outside_speed_windows", [])
-        extra = len(pending) - cfg.extend_windows
-        if extra < 0 or extra % max(1, cfg.extend_windows // 4) or self._degrading():
+        pending = [key[1] for key in self.state.get("outside_speed_windows", [])]
+        if not self.config.extension_due(len(pending), self._share_over_limit()):
             return False
         end = self.baseline_end
         assert end is not None
@@ -540,7 +545,6 @@ class _Run:
         last = candidates[-1]
         self.state.setdefault("extensions", []).append(
             {
-                "at": last.window_start.isoformat(),
                 "key": [last.window_start.isoformat(), last.message_id.hex],
                 "windows": len(candidates),
                 "speed_range_hz": list(fitted.speed_range_hz),
@@ -556,7 +560,7 @@ class _Run:
         (it would have been scored, or learned, against another baseline), or at a speed outside
         the baseline's (in window order it might have brought an extension forward), or before a
         waiting out-of-range window once an extension has been weighed (it would have been one
-        of the windows :meth:`_degrading` looked at).
+        of the windows :meth:`_share_over_limit` looked at).
         """
         if end is None or self.baseline is None:
             return False
@@ -566,8 +570,8 @@ class _Run:
         extensions = self.state.get("extensions") or []
         if extensions and first <= _key(extensions[-1]["key"]):
             return False
-        weighed = len(self.state.get("outside_speed_windows", [])) >= self.config.extend_windows
-        if weighed and first <= _key(self.state["outside_speed_last"]):
+        waiting = self.state.get("outside_speed_windows", [])
+        if len(waiting) >= self.config.extend_windows and first <= _key(waiting[-1]):
             return False
         return not any(
             w.excluded_reason is None
@@ -575,8 +579,8 @@ class _Run:
             for w in late
         )
 
-    def _degrading(self) -> bool:
-        """Whether the latest scored windows of the segment show a sustained anomaly."""
+    def _share_over_limit(self) -> float:
+        """The share of the segment's latest ``detect_windows`` scored windows over the limit."""
         self._write_points()
         recent = self.session.execute(
             select(HealthPointRow.anomaly_score, HealthPointRow.control_limit)
@@ -588,14 +592,7 @@ class _Run:
             .order_by(HealthPointRow.window_start.desc(), HealthPointRow.message_id.desc())
             .limit(self.config.detect_windows)
         ).all()
-        if not recent:
-            return False
-        over = sum(
-            1
-            for score, limit in recent
-            if score is not None and limit is not None and score > limit
-        )
-        return over / len(recent) >= self.config.detect_fraction
+        return share_over_limit([(score, limit) for score, limit in recent])
 
     # -- processing ---------------------------------------------------------------------------
     def _behind_cursor(self, seg: datetime, last: WindowKey) -> list[Window] | None:
@@ -739,6 +736,13 @@ def _segment_points(
         stmt = stmt.where(HealthPointRow.window_start < hi)
     stmt = stmt.order_by(HealthPointRow.window_start, HealthPointRow.message_id)
     return [(r[0], r[1], r[2], r[3]) for r in session.execute(stmt)]
+
+
+def share_over_limit(scores: Sequence[tuple[float | None, float | None]]) -> float:
+    """The share of (anomaly score, control limit) pairs with a score over its limit (0 if
+    none has both)."""
+    both = [(s, lim) for s, lim in scores if s is not None and lim is not None]
+    return sum(1 for s, lim in both if s > lim) / len(both) if both else 0.0
 
 
 def _key(stored: Sequence[str]) -> WindowKey:
@@ -1001,8 +1005,10 @@ def _summarise(run: _Run, events: Sequence[MaintenanceEventRow]) -> dict[str, An
         "control_limit": last[2],
         "over_limit": bool(last[1] is not None and last[2] is not None and last[1] > last[2]),
     }
-    recent = [p for p in points[-cfg.detect_windows :] if p[1] is not None and p[2] is not None]
-    over = float(np.mean([p[1] > p[2] for p in recent])) if recent else 0.0  # type: ignore[operator]
+    recent = [
+        (p[1], p[2]) for p in points[-cfg.detect_windows :] if p[1] is not None and p[2] is not None
+    ]
+    over = share_over_limit(recent)
     result["diagnosis"] = _diagnosis(run)
     result["velocity_rms_mm_s"] = overall_velocity(result["diagnosis"])
     mode = _leading_mode(points, result["diagnosis"])

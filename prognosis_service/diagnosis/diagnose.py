@@ -165,7 +165,18 @@ def diagnose(
             m: (1.0 - rule_weight) * p_clf.get(m, 0.0) + rule_weight * rules[m] for m in modes
         }
     total = sum(pooled.values())
-    pooled = {m: v / total for m, v in pooled.items()}
+    return _verdict(
+        {m: v / total for m, v in pooled.items()}, min_confidence, p_clf, tuple(evidence)
+    )
+
+
+def _verdict(
+    pooled: Mapping[str, float],
+    min_confidence: float,
+    classifier_probabilities: dict[str, float] | None,
+    evidence: tuple[Evidence, ...],
+) -> Diagnosis:
+    """The diagnosis from pooled probabilities: the leading mode if it reaches the confidence."""
     ranked = sorted(pooled, key=lambda m: -pooled[m])
     lead = ranked[0]
     confidence = float(pooled[lead])
@@ -175,10 +186,10 @@ def diagnose(
         fault=fault,
         confidence=confidence,
         probabilities={m: float(pooled[m]) for m in ranked},
-        classifier_probabilities=p_clf,
-        evidence=tuple(evidence),
+        classifier_probabilities=classifier_probabilities,
+        evidence=evidence,
         candidates=candidates,
-        summary=_summary(fault, confidence, candidates, pooled, evidence),
+        summary=_summary(fault, confidence, candidates, pooled, list(evidence)),
     )
 
 
@@ -211,23 +222,9 @@ def pool_diagnoses(diagnoses: Sequence[Diagnosis], *, min_confidence: float = 0.
     modes = list(dict.fromkeys(m for d in diagnoses for m in d.probabilities))
     n = len(diagnoses)
     pooled = {m: sum(d.probabilities.get(m, 0.0) for d in diagnoses) / n for m in modes}
-    ranked = sorted(pooled, key=lambda m: -pooled[m])
-    lead = ranked[0]
-    confidence = float(pooled[lead])
-    fault = lead if confidence >= min_confidence else NOT_SURE
-    candidates = (lead,) if fault != NOT_SURE else tuple(ranked[:2])
     clf = [d.classifier_probabilities for d in diagnoses if d.classifier_probabilities is not None]
-    return Diagnosis(
-        fault=fault,
-        confidence=confidence,
-        probabilities={m: float(pooled[m]) for m in ranked},
-        classifier_probabilities=(
-            {m: sum(c.get(m, 0.0) for c in clf) / len(clf) for m in clf[-1]} if clf else None
-        ),
-        evidence=latest.evidence,
-        candidates=candidates,
-        summary=_summary(fault, confidence, candidates, pooled, list(latest.evidence)),
-    )
+    mean_clf = {m: sum(c.get(m, 0.0) for c in clf) / len(clf) for m in clf[-1]} if clf else None
+    return _verdict(pooled, min_confidence, mean_clf, latest.evidence)
 
 
 def _summary(
