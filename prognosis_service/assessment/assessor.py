@@ -45,6 +45,7 @@ codes and qualified personnel decide what is done on the machine.
 
 from __future__ import annotations
 
+import copy
 import functools
 import hashlib
 import logging
@@ -329,7 +330,9 @@ class _Run:
         self.outcome = outcome
         self.snapshot_id = row.cursor_id
         self.points: list[dict[str, Any]] = []  # health points not yet written (_write_points)
-        state = dict(row.state or {})
+        # A deep copy: the state's lists are appended to in place, and an in-place change to
+        # the loaded value would compare equal to it at flush, so the UPDATE would be skipped.
+        state = copy.deepcopy(row.state or {})
         self.state = state
         self.baseline = (
             FittedBaseline.from_state(state["baseline"]) if state.get("baseline") else None

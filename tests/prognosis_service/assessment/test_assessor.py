@@ -460,6 +460,30 @@ def test_speeds_the_baseline_never_saw_wait_without_a_verdict_then_are_learned(
     assert np.mean([p.anomaly_score > p.control_limit for p in later]) < 0.05  # type: ignore[operator]
 
 
+def test_waiting_windows_are_counted_when_they_arrive_one_at_a_time(store: Store) -> None:
+    # A gateway sends one window per assessment run: each run only adds to the waiting list,
+    # and every addition must be kept (the list once lost them, and the learning came late).
+    cfg = AssessmentConfig()
+    n_base = cfg.baseline_windows
+    _, slow = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                       constant_speed_rpm=1250.0)  # fmt: skip
+    layout, fast = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
+    msgs = [*slow[:n_base], *fast[n_base : n_base + cfg.extend_windows + 4]]
+    register(store, "MAL-P1")
+    store_messages(store, layout, msgs[:n_base])
+    _assess_all(store, "MAL-P1")
+    for k, msg in enumerate(msgs[n_base:], start=1):
+        store_messages(store, layout, [msg])
+        _assess_all(store, "MAL-P1")
+        state = _row(store, "MAL-P1").state
+        if k < cfg.extend_windows:
+            assert len(state["outside_speed_windows"]) == k
+    (extension,) = _row(store, "MAL-P1").state["extensions"]
+    assert extension["windows"] == cfg.extend_windows
+    assert extension["key"][1] == msgs[n_base + cfg.extend_windows - 1].message_id.hex
+
+
 def test_a_degrading_pump_does_not_learn_new_speeds_into_its_baseline(store: Store) -> None:
     # The outer race defect grows at the slow speed until it is detected; then the speed moves
     # outside the baseline. Learning those windows as healthy would hide the defect.
