@@ -24,9 +24,11 @@ longer holds. A false alarm is a raised alarm on a healthy pump; the rate is rai
 scored asset-years. Windows the assessment excludes (quality flags, no operating point) or the
 score refuses (indicators not computed, no baseline in the regime, a shaft speed outside the
 speeds the baseline was learned at) give no verdict and count as not anomalous; their share is
-stated. Windows at new speeds are learned into the baseline as the assessor learns them
-(``extend_windows`` of them, while no degradation is detected). The single-window rule (any
-anomalous window raises an alarm) is given for comparison, and so is the false-alarm rate when
+stated. The baseline matures and learns windows at new speeds as the assessor's does
+(while no degradation is detected: refitted on the windows so far each time as many have been
+scored as it holds, up to ``mature_windows``; ``extend_windows`` windows at new speeds at a
+time). The single-window rule (any anomalous window raises an alarm) is given for comparison,
+and so is the false-alarm rate when
 the score is fitted as the assessor fits it in service: on its first ``baseline_windows``
 usable windows, not 30 days.
 
@@ -143,19 +145,29 @@ def _service_verdicts(
     scored window without a score (no baseline in its regime, indicators missing, a speed the
     baseline has not learned) has no verdict. Their reasons are counted into ``reasons``.
 
-    With ``base`` (the windows ``fitted`` was fitted on), windows outside the learned speeds are
-    learned into the baseline as the assessor does (``_Run._extend_baseline``): once
-    ``extend_windows`` of them wait (checked again every quarter of that) and fewer than
-    ``detect_fraction`` of the last ``detect_windows`` verdicts are anomalous, the baseline is
-    refitted on ``base`` plus every window learned so far and the rest is scored against it.
-    The waiting windows themselves stay without a verdict here: the assessor rescores them but
-    sends no alert readings for them, so they can raise no alarm.
+    With ``base`` (the windows ``fitted`` was fitted on), the baseline changes as the
+    assessor's does. It matures (``_Run._grow_baseline``): each time as many windows have been
+    scored since the last fit as the baseline holds, below ``mature_windows``, and fewer than
+    ``detect_fraction`` of the last ``detect_windows`` verdicts are anomalous, it is refitted
+    on every usable window so far but those at new speeds. And windows outside the learned
+    speeds are learned into it (``_Run._extend_baseline``): once ``extend_windows`` of them wait
+    (checked again every quarter of that) and no degradation is detected, the baseline is
+    refitted on its windows plus every window learned so far. The rest is scored against the
+    new baseline. The waiting windows themselves stay without a verdict here: the assessor
+    rescores them but sends no alert readings for them, so they can raise no alarm.
     """
     anomaly = np.zeros(len(windows), dtype=bool)
     scored: list[bool] = []
     learned: list[Window] = []
     pending: list[Window] = []
+    since: list[Window] = []  # usable windows after the last fit, not at new speeds
+    n_scored = 0  # of them, those with a score
     start = 0
+
+    def share_anomalous() -> float:
+        recent = scored[-CONFIG.detect_windows :]
+        return float(np.mean(recent)) if recent else 0.0
+
     while start < len(windows):
         rest = range(start, len(windows))
         usable = [i for i in rest if windows[i].excluded_reason is None]
@@ -167,25 +179,43 @@ def _service_verdicts(
                 if reasons is not None:
                     reasons[_reason_kind(windows[i].excluded_reason or "")] += 1
                 continue
+            refit = None
             if sc.anomaly_score is not None and sc.control_limit is not None:
                 anomaly[i] = sc.anomaly_score > sc.control_limit
                 scored.append(bool(anomaly[i]))
-                continue
-            if reasons is not None:
-                reasons[_reason_kind(sc.reason or "")] += 1
-            if base is None or not (sc.reason or "").startswith(OUTSIDE_SPEED_RANGE):
-                continue
-            pending.append(windows[i])
-            recent = scored[-CONFIG.detect_windows :]
-            if not CONFIG.extension_due(len(pending), float(np.mean(recent)) if recent else 0.0):
-                continue
-            try:
-                refit = CONFIG.fit_baseline([*base, *learned, *pending])
-            except (NotEnoughDataError, ValueError):
-                continue
-            fitted, learned, pending = refit, [*learned, *pending], []
-            start = i + 1
-            break
+                if base is None:
+                    continue
+                since.append(windows[i])
+                n_scored += 1
+                if CONFIG.growth_due(len(base), n_scored):
+                    n_scored = 0
+                    if share_anomalous() < CONFIG.detect_fraction:
+                        try:
+                            refit = CONFIG.fit_baseline([*base, *since, *learned])
+                        except (NotEnoughDataError, ValueError):
+                            pass
+                        else:
+                            base, since = [*base, *since], []
+            else:
+                if reasons is not None:
+                    reasons[_reason_kind(sc.reason or "")] += 1
+                if base is None:
+                    continue
+                if not (sc.reason or "").startswith(OUTSIDE_SPEED_RANGE):
+                    since.append(windows[i])
+                    continue
+                pending.append(windows[i])
+                if not CONFIG.extension_due(len(pending), share_anomalous()):
+                    continue
+                try:
+                    refit = CONFIG.fit_baseline([*base, *learned, *pending])
+                except (NotEnoughDataError, ValueError):
+                    continue
+                learned, pending = [*learned, *pending], []
+            if refit is not None:
+                fitted = refit
+                start = i + 1
+                break
     return anomaly
 
 
@@ -330,7 +360,9 @@ def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
         alarms_rule += rule
         alarms_single += single
         short, short_base = _fit_as_assessor(base)
-        short_anomaly = _service_verdicts(short, windows_of(scored), base=short_base)
+        # the assessor goes on from its baseline's last window; alarms count from day 30 on
+        after = windows_of(healthy)[short_base[-1].row_id :]  # row ids count from 1
+        short_anomaly = _service_verdicts(short, after, base=short_base)[-len(scored.times) :]
         short_rule += alarm_starts(short_anomaly, K, N).size
         short_flagged += int(short_anomaly.sum())
         short_used.append(len(short_base))

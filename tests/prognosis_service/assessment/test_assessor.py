@@ -139,6 +139,36 @@ def test_a_degrading_pump_gets_an_ordered_forecast_and_the_right_fault(store: St
     assert {AnomalyReading, ZoneReading, TimeToFailureReading, DiagnosisReading} <= kinds
 
 
+def test_a_healthy_pumps_baseline_matures_in_doubling_steps(store: Store) -> None:
+    # 48 windows of baseline, then refits on 96 and 192 windows as as many are scored after it
+    cfg = AssessmentConfig()
+    n = cfg.baseline_windows
+    layout, msgs = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 25, every_h=EVERY_H)
+    register(store, "MAL-P1")
+    store_messages(store, layout, msgs)
+    _assess_all(store, "MAL-P1")
+    points = _points(store, "MAL-P1")
+    assert len(points) == len(msgs)
+    judged = [p for p in points if not p.excluded]  # a few wait at new speeds, kept apart
+    assert 4 * n < len(judged) < len(points)
+    state = _row(store, "MAL-P1").state
+    assert [g["windows"] for g in state["growths"]] == [2 * n, 4 * n]
+    assert state["target"] == state["baseline"]["n_windows"] == 4 * n
+    assert state["baseline_end"][1] == judged[4 * n - 1].message_id.hex
+    assert all(p.anomaly_score is not None for p in judged)
+
+
+def test_a_degrading_pumps_baseline_does_not_grow_over_its_defect(store: Store) -> None:
+    layout, msgs = simulate("MAL-P2", OUTER, seed=3, hours=24 * 24, every_h=EVERY_H)
+    register(store, "MAL-P2")
+    store_messages(store, layout, msgs)
+    _assess_all(store, "MAL-P2")
+    state = _row(store, "MAL-P2").state
+    assert OUTER.onset is not None
+    grown = [datetime.fromisoformat(g["key"][0]) for g in state.get("growths", [])]
+    assert all(at < OUTER.onset for at in grown), grown
+
+
 def test_a_repair_starts_a_new_life_segment(store: Store) -> None:
     repair = START + timedelta(days=24, hours=1)
     scenario = FaultScenario(
