@@ -465,7 +465,9 @@ def run(*, quick: bool = False, report: Report | None = None) -> list[Figure]:
             unit="per asset-year",
             notes=f"{short_rule} alarms; the same score fitted as the assessor fits it, on the "
             f"first {CONFIG.baseline_windows} usable windows (lengthened while a regime lacks "
-            f"windows; used {', '.join(map(str, short_used))}), scoring the same windows; "
+            f"windows; used {', '.join(map(str, short_used))}) and maturing to "
+            f"{CONFIG.mature_windows} as the assessor's does, run on from its last window; "
+            "alarms counted over the same days as above; "
             f"{100 * short_flagged / max(scored_h, 1):.2f} % windows anomalous",
         )
     )
