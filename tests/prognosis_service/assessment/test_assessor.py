@@ -43,7 +43,7 @@ from prognosis_service.assessment.models import (
 from prognosis_service.assessment.worker import AssessmentWorker, assets_due
 from prognosis_service.prognosis import ExponentialDegradation, WienerDegradation
 from prognosis_service.store.engine import Store
-from shared_schema import ChannelQuality, QualityFlag
+from shared_schema import ChannelQuality, IndicatorLayout, IndicatorMessage, QualityFlag
 from tests.prognosis_service.assessment.simfleet import START, register, simulate, store_messages
 
 HEALTHY = FaultScenario()
@@ -446,6 +446,18 @@ def test_a_daily_regime_offset_does_not_hide_a_steady_rise_from_the_fit() -> Non
         assert 0 < q10 < q50 < q90
 
 
+def _slow_then_fast(
+    cfg: AssessmentConfig, n_fast: int
+) -> tuple[IndicatorLayout, list[IndicatorMessage]]:
+    """A healthy pump's baseline windows at 1,250 rpm, then ``n_fast`` windows at 1,700 rpm."""
+    n_base = cfg.baseline_windows
+    _, slow = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                       constant_speed_rpm=1250.0)  # fmt: skip
+    layout, fast = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
+                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
+    return layout, [*slow[:n_base], *fast[n_base : n_base + n_fast]]
+
+
 def test_speeds_the_baseline_never_saw_wait_without_a_verdict_then_are_learned(
     store: Store,
 ) -> None:
@@ -454,11 +466,7 @@ def test_speeds_the_baseline_never_saw_wait_without_a_verdict_then_are_learned(
     # no source), so judging the new speed against the slow baseline would raise false alarms.
     cfg = AssessmentConfig()
     n_base = cfg.baseline_windows
-    _, slow = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
-                       constant_speed_rpm=1250.0)  # fmt: skip
-    layout, fast = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
-                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
-    msgs = [*slow[:n_base], *fast[n_base : n_base + cfg.extend_windows + 8]]
+    layout, msgs = _slow_then_fast(cfg, cfg.extend_windows + 8)
     waiting = cfg.extend_windows - 12
     register(store, "MAL-P1")
     store_messages(store, layout, msgs[: n_base + waiting])
@@ -495,11 +503,7 @@ def test_waiting_windows_are_counted_when_they_arrive_one_at_a_time(store: Store
     # and every addition must be kept (the list once lost them, and the learning came late).
     cfg = AssessmentConfig()
     n_base = cfg.baseline_windows
-    _, slow = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
-                       constant_speed_rpm=1250.0)  # fmt: skip
-    layout, fast = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 16, every_h=EVERY_H,
-                            constant_speed_rpm=1700.0, first_sequence=10_000)  # fmt: skip
-    msgs = [*slow[:n_base], *fast[n_base : n_base + cfg.extend_windows + 4]]
+    layout, msgs = _slow_then_fast(cfg, cfg.extend_windows + 4)
     register(store, "MAL-P1")
     store_messages(store, layout, msgs[:n_base])
     _assess_all(store, "MAL-P1")
