@@ -42,8 +42,9 @@ How an asset is assessed
 * **Fleet prior.** Learned (:class:`FleetPrior`) from the segments of the same asset class that
   ended in a recorded failure; with fewer than three, the models' documented default priors.
 * **Late data.** A window older than the last one processed is scored against the segment's
-  baseline and the fit is redone; if it falls inside the baseline period, the segment is
-  reassessed from its stored windows.
+  baseline and the fit is redone; if it falls inside the baseline period (or would have changed
+  when the baseline grew or learned new speeds), the segment is reassessed from its stored
+  windows.
 * **Lease.** An asset is assessed by one process at a time (a lease row with an expiry).
 
 Everything here is advisory: forecasts and diagnoses do not replace protective trips, and local
@@ -622,7 +623,8 @@ class _Run:
         (it would have been scored, or learned, against another baseline), or at a speed outside
         the baseline's (in window order it might have brought an extension forward), or before a
         waiting out-of-range window once an extension has been weighed (it would have been one
-        of the windows :meth:`_share_over_limit` looked at).
+        of the windows :meth:`_share_over_limit` looked at), or when with them the baseline's
+        growth would have been due (:meth:`_grow_baseline`, which may have come before them).
         """
         if end is None or self.baseline is None:
             return False
