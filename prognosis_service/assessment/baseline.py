@@ -71,7 +71,12 @@ def mode_of_fault(fault: str | None) -> str | None:
 
 @dataclass(frozen=True, slots=True)
 class Score:
-    """One window scored against the baseline (``reason`` set when it could not be)."""
+    """One window scored against the baseline (``reason`` set when it could not be).
+
+    ``anomaly_score`` is Hotelling's T² of the health-index vector, negative when the health
+    indices departed downwards on balance (:meth:`HotellingT2.signed_score_samples`): a window
+    healthier than its baseline is never over the limit.
+    """
 
     regime: int | None
     anomaly_score: float | None
@@ -149,7 +154,7 @@ class FittedBaseline:
         ok = np.isfinite(H).all(axis=1)
         t2 = np.full(len(windows), np.nan)
         if ok.any():
-            t2[ok] = self.t2.score_samples(H[ok])
+            t2[ok] = self.t2.signed_score_samples(H[ok])
         limit = self.limit
         out = []
         for i in range(len(windows)):

@@ -156,7 +156,11 @@ class MaintenanceEventPage(BaseModel):
 class HealthPointOut(BaseModel):
     t: datetime
     health_index: float | None
-    anomaly_score: float | None
+    anomaly_score: float | None = Field(
+        description="Hotelling T² of the window's health indices against its baseline; "
+        "negative when they departed downwards on balance (healthier than the baseline), "
+        "which is never an anomaly. Over control_limit: anomalous. Advisory only."
+    )
     control_limit: float | None
     regime: str | None
     excluded: bool

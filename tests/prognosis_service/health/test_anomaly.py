@@ -52,6 +52,28 @@ def test_false_alarm_rate_on_healthy_normal_data_is_close_to_alpha():
     assert abs(rate - 0.01) < 0.005
 
 
+def test_the_one_sided_score_alarms_on_rises_only_at_half_the_rate():
+    # Follmann (1996), JASA 91, 854-861: "T² over its limit and the sum of the departures
+    # positive" has half the two-sided test's false-alarm rate under a symmetric distribution,
+    # as the sum's sign is independent of T²; the α limit therefore gives α / 2.
+    rng = np.random.default_rng(1)
+    model = HotellingT2(alpha=0.01, robust=False).fit(rng.multivariate_normal(MEAN, COV, 3000))
+    fresh = rng.multivariate_normal(MEAN, COV, size=100_000)
+    signed = model.signed_score_samples(fresh)
+    np.testing.assert_allclose(np.abs(signed), model.score_samples(fresh), rtol=1e-12)
+    limit = model.control_limit()
+    assert abs((signed > limit).mean() - 0.005) < 0.0015
+    assert abs((np.abs(signed) > limit).mean() - 0.01) < 0.002
+    # the same shift up and down: the same T², one alarm
+    std = np.sqrt(np.diag(model.covariance_))
+    up, down = model.location_ + 4 * std, model.location_ - 4 * std
+    s_up, s_down = model.signed_score_samples(np.vstack([up, down]))
+    assert s_up == pytest.approx(-s_down) and s_up > limit
+    # a mixed departure takes the sign of its standardised sum
+    mixed = model.location_ + np.array([3.0, -1.0, -1.0]) * std
+    assert model.signed_score_samples(mixed[None, :])[0] > 0
+
+
 def test_small_baseline_falls_back_to_shrunk_covariance_and_stays_conservative():
     rng = np.random.default_rng(2)
     model = HotellingT2(alpha=0.01).fit(rng.multivariate_normal(MEAN, COV, size=20))
