@@ -28,9 +28,8 @@ stated. The baseline matures and learns windows at new speeds as the assessor's 
 (while no degradation is detected: refitted on the windows so far each time as many have been
 scored as it holds, up to ``mature_windows``; ``extend_windows`` windows at new speeds at a
 time). The single-window rule (any anomalous window raises an alarm) is given for comparison,
-and so is the false-alarm rate when
-the score is fitted as the assessor fits it in service: on its first ``baseline_windows``
-usable windows, not 30 days.
+and so is the false-alarm rate when the score is fitted as the assessor fits it in service: on
+its first ``baseline_windows`` usable windows, not 30 days, then matured.
 
 Detection delay: pumps of the healthy set get a fault right after their baseline period (same
 pump, same seed, so the baseline is the same healthy data); the delay is the days from fault
