@@ -139,22 +139,25 @@ def test_a_degrading_pump_gets_an_ordered_forecast_and_the_right_fault(store: St
     assert {AnomalyReading, ZoneReading, TimeToFailureReading, DiagnosisReading} <= kinds
 
 
-def test_a_healthy_pumps_baseline_matures_in_doubling_steps(store: Store) -> None:
-    # 48 windows of baseline, then refits on 96 and 192 windows as as many are scored after it
-    cfg = AssessmentConfig()
+@pytest.mark.parametrize("mature", [384, 96])
+def test_a_healthy_pumps_baseline_matures_in_doubling_steps(store: Store, mature: int) -> None:
+    # 48 windows of baseline, then refits on 96 and 192 windows as as many are scored after it,
+    # up to the mature size
+    cfg = AssessmentConfig(mature_windows=mature)
     n = cfg.baseline_windows
+    steps = [k * n for k in (2, 4) if k * n <= mature]
     layout, msgs = simulate("MAL-P1", HEALTHY, seed=11, hours=24 * 25, every_h=EVERY_H)
     register(store, "MAL-P1")
     store_messages(store, layout, msgs)
-    _assess_all(store, "MAL-P1")
+    _assess_all(store, "MAL-P1", config=cfg)
     points = _points(store, "MAL-P1")
     assert len(points) == len(msgs)
     judged = [p for p in points if not p.excluded]  # a few wait at new speeds, kept apart
     assert 4 * n < len(judged) < len(points)
     state = _row(store, "MAL-P1").state
-    assert [g["windows"] for g in state["growths"]] == [2 * n, 4 * n]
-    assert state["target"] == state["baseline"]["n_windows"] == 4 * n
-    assert state["baseline_end"][1] == judged[4 * n - 1].message_id.hex
+    assert [g["windows"] for g in state["growths"]] == steps
+    assert state["target"] == state["baseline"]["n_windows"] == steps[-1]
+    assert state["baseline_end"][1] == judged[steps[-1] - 1].message_id.hex
     assert all(p.anomaly_score is not None for p in judged)
 
 
