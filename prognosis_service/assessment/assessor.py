@@ -57,7 +57,6 @@ codes and qualified personnel decide what is done on the machine.
 
 from __future__ import annotations
 
-import copy
 import functools
 import hashlib
 import logging
@@ -71,6 +70,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import delete, func, insert, select, update
 from sqlalchemy.orm import Session
+from sqlalchemy.orm.attributes import flag_modified
 
 from prognosis_service.alerts.rules import (
     AnomalyReading,
@@ -348,9 +348,7 @@ class _Run:
         self.outcome = outcome
         self.snapshot_id = row.cursor_id
         self.points: list[dict[str, Any]] = []  # health points not yet written (_write_points)
-        # A deep copy: the state's lists are appended to in place, and an in-place change to
-        # the loaded value would compare equal to it at flush, so the UPDATE would be skipped.
-        state = copy.deepcopy(row.state or {})
+        state = dict(row.state or {})
         self.state = state
         self.baseline = (
             FittedBaseline.from_state(state["baseline"]) if state.get("baseline") else None
@@ -534,10 +532,15 @@ class _Run:
             self.state["baseline_note"] = str(exc)
             self.state["target"] = target + max(1, cfg.baseline_windows // 4)
             return
+        self._use_baseline(fitted, end=last)
+        self.score_and_store(rows)
+
+    def _use_baseline(self, fitted: FittedBaseline, *, end: Window | None = None) -> None:
+        """Score from now on against ``fitted``; ``end``: the last window of its baseline."""
         self.baseline = fitted
         self.state["baseline"] = fitted.to_state()
-        self.state["baseline_end"] = [last.window_start.isoformat(), last.message_id.hex]
-        self.score_and_store(rows)
+        if end is not None:
+            self.state["baseline_end"] = [end.window_start.isoformat(), end.message_id.hex]
 
     def _grow_baseline(self, last: Window) -> bool:
         """Refit the baseline on the segment's usable windows up to ``last``, when it is due.
@@ -570,9 +573,7 @@ class _Run:
             fitted = cfg.fit_baseline(base + learned)
         except (NotEnoughDataError, ValueError):
             return False
-        self.baseline = fitted
-        self.state["baseline"] = fitted.to_state()
-        self.state["baseline_end"] = [last.window_start.isoformat(), last.message_id.hex]
+        self._use_baseline(fitted, end=last)
         self.state["target"] = len(base)
         self.state.setdefault("growths", []).append(
             {"key": self.state["baseline_end"], "windows": len(base) + len(learned)}
@@ -612,8 +613,7 @@ class _Run:
             )
         )
         assert fitted.speed_range_hz is not None
-        self.baseline = fitted
-        self.state["baseline"] = fitted.to_state()
+        self._use_baseline(fitted)
         self.state["learned_speed_windows"] = learned
         self.state["outside_speed_windows"] = []
         last = candidates[-1]
@@ -1264,6 +1264,9 @@ def assess_asset(
                 row.summary = fleet_summary(result)
                 _final_readings(run, result)
             row.state = run.state
+            # The state's lists are appended to in place, so the loaded value changed with them
+            # and compares equal at flush: without this the UPDATE of the column is skipped.
+            flag_modified(row, "state")
             row.updated_at = datetime.now(UTC)
             outcome.status = row.status
         return outcome
