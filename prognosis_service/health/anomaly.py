@@ -239,9 +239,14 @@ class HotellingT2(BaseEstimator):
 
     def score_samples(self, X: ArrayLike) -> NDArray:
         """Return T² of each row (0 at the baseline location, grows with the anomaly)."""
+        return self._t2(self._departures(X))
+
+    def _departures(self, X: ArrayLike) -> NDArray:
         check_is_fitted(self, "precision_")
         arr = as_matrix(X, owner=type(self).__name__, n_columns=self.n_features_in_)
-        d = arr - self.location_
+        return arr - self.location_
+
+    def _t2(self, d: NDArray) -> NDArray:
         return np.einsum("ij,jk,ik->i", d, self.precision_, d)
 
     def signed_score_samples(self, X: ArrayLike) -> NDArray:
@@ -262,10 +267,8 @@ class HotellingT2(BaseEstimator):
         Follmann, "A simple multivariate test for one-sided alternatives", Journal of the
         American Statistical Association 91 (1996) 854–861.
         """
-        check_is_fitted(self, "precision_")
-        arr = as_matrix(X, owner=type(self).__name__, n_columns=self.n_features_in_)
-        d = arr - self.location_
-        t2 = np.einsum("ij,jk,ik->i", d, self.precision_, d)
+        d = self._departures(X)
+        t2 = self._t2(d)
         std = np.sqrt(np.clip(np.diag(self.covariance_), np.finfo(float).tiny, None))
         return np.where((d / std).sum(axis=1) < 0.0, -t2, t2)
 
