@@ -50,7 +50,7 @@ def missing(what: str) -> NoReturn:
     """
     if os.environ.get("CI"):
         pytest.fail(f"{what}; ./dev test should have installed or started it", pytrace=False)
-    pytest.skip(what)
+    pytest.skip(what)  # outside CI only, and with the reason: which tool or service is missing
 
 
 def require_tool(present: bool, what: str) -> None:
